@@ -1,0 +1,130 @@
+"""Request dependencies as ``Annotated`` aliases, so route signatures read like sentences.
+
+* :data:`SettingsDep` - the app's :class:`~service.config.Settings`.
+* :data:`SessionDep` - one SQLAlchemy session per request from ``app.state.session_factory``;
+  domain operations commit, the session is closed (and anything uncommitted rolled back)
+  when the request ends.
+* :data:`ModelDep` - the ``{model}`` path parameter loaded from the store, or
+  :class:`~service.errors.ModelNotFoundError` (404). Written once here, never per route.
+* :data:`ScorerAccess`, :data:`ModelerAccess`, :data:`AdminAccess` - role gates built by
+  :func:`require_role`. Roles are ordered scorer < modeler < admin.
+
+Access seam: :func:`require_role` asks ``app.state.access_checker`` (a callable
+``(request, role) -> Principal``) when one is installed, and otherwise lets every request in
+as an anonymous principal. The API-key module (``service/security.py``) installs the checker;
+routes need no change.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from typing import Annotated, Literal
+
+from fastapi import Depends, Path, Request
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from models_store.orm import RiskModel
+from service.config import Settings
+from service.errors import ModelNotFoundError
+
+__all__ = [
+    "ROLE_RANK",
+    "AdminAccess",
+    "ModelDep",
+    "ModelName",
+    "ModelerAccess",
+    "Principal",
+    "Role",
+    "ScorerAccess",
+    "SessionDep",
+    "SettingsDep",
+    "get_model",
+    "get_session",
+    "get_settings_dep",
+    "require_role",
+]
+
+Role = Literal["scorer", "modeler", "admin"]
+ROLE_RANK: dict[str, int] = {"scorer": 1, "modeler": 2, "admin": 3}
+
+ModelName = Annotated[
+    str,
+    Path(
+        min_length=1,
+        max_length=100,
+        pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]*$",
+        description="Model name: letters, digits, '.', '_' or '-'; starts with a letter or digit.",
+        examples=["water-main-breaks"],
+    ),
+]
+
+
+@dataclass(frozen=True)
+class Principal:
+    """Who is calling: ``key_id`` is ``None`` while access control is off."""
+
+    role: Role
+    key_id: int | None = None
+    name: str = "anonymous"
+
+
+ANONYMOUS = Principal(role="admin")
+
+
+def get_settings_dep(request: Request) -> Settings:
+    settings: Settings = request.app.state.settings
+    return settings
+
+
+SettingsDep = Annotated[Settings, Depends(get_settings_dep)]
+
+
+def get_session(request: Request) -> Iterator[Session]:
+    factory: Callable[[], Session] = request.app.state.session_factory
+    session = factory()
+    try:
+        yield session
+    finally:
+        session.close()
+
+
+SessionDep = Annotated[Session, Depends(get_session)]
+
+
+def get_model(model: ModelName, session: SessionDep) -> RiskModel:
+    """Load the model named in the path or raise ``ModelNotFoundError`` (404)."""
+    found = session.scalars(select(RiskModel).where(RiskModel.name == model)).one_or_none()
+    if found is None:
+        raise ModelNotFoundError(
+            f"No risk model is named {model!r}.",
+            field="path.model",
+            value=model,
+            remedy="List models with GET /risk-models, or fit one with "
+            f"POST /risk-models/{model}/versions.",
+        )
+    return found
+
+
+ModelDep = Annotated[RiskModel, Depends(get_model)]
+
+
+def require_role(role: Role) -> Callable[[Request], Principal]:
+    """A dependency that admits callers holding ``role`` or a higher one."""
+
+    def check_access(request: Request) -> Principal:
+        checker: Callable[[Request, Role], Principal] | None = getattr(
+            request.app.state, "access_checker", None
+        )
+        if checker is None:
+            return ANONYMOUS
+        return checker(request, role)
+
+    check_access.__name__ = f"require_{role}"
+    return check_access
+
+
+ScorerAccess = Annotated[Principal, Depends(require_role("scorer"))]
+ModelerAccess = Annotated[Principal, Depends(require_role("modeler"))]
+AdminAccess = Annotated[Principal, Depends(require_role("admin"))]

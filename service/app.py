@@ -1,0 +1,94 @@
+"""The app factory: ``create_app(settings) -> FastAPI``.
+
+Start-up (lifespan) applies the store's Alembic migrations, builds the SQLAlchemy engine and
+session factory into ``app.state`` and disposes of the engine at shutdown. Nothing is built at
+import time, so tests create one app per test with their own :class:`Settings`.
+
+Adding a resource: write ``service/api/<resource>.py`` with ``router = APIRouter(...)`` and
+append its import path to :data:`ROUTERS`.
+"""
+
+from __future__ import annotations
+
+import importlib
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+
+from fastapi import APIRouter, FastAPI
+
+from models_store.db import make_engine, make_session_factory, upgrade
+from service import __version__
+from service.api.errors import install_error_handlers
+from service.api.metrics import AppMetrics, MetricsMiddleware
+from service.config import Settings, get_settings
+from service.schemas import ErrorResponse
+
+__all__ = ["ROUTERS", "create_app"]
+
+#: Router modules, in the order their paths appear in the OpenAPI document.
+ROUTERS: list[str] = [
+    "service.api.health",
+    "service.api.models",
+    "service.api.versions",
+    "service.api.champion",
+    "service.api.scores",
+]
+
+DESCRIPTION = """
+riskfit fits binary-outcome logistic risk models by maximum likelihood with honest
+uncertainty, keeps every fitted version with the encoding that produced it, and scores
+records with a probability and its confidence interval.
+
+Every error answer has the body `{"error": {"code", "message", "field", "value", "remedy"}}`.
+
+*A risk score supports a decision; it does not make it. Defer to local regulation and
+licensed practice.*
+"""
+
+
+def _routers() -> list[APIRouter]:
+    out: list[APIRouter] = []
+    for name in ROUTERS:
+        try:
+            module = importlib.import_module(name)
+        except ModuleNotFoundError as exc:
+            if exc.name != name:
+                raise
+            continue  # a resource module not written yet
+        out.append(module.router)
+    return out
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    """Build the riskfit ASGI app; ``settings`` defaults to the environment's."""
+    settings = settings or get_settings()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        engine = make_engine(settings.database_url, busy_timeout_ms=settings.sqlite_busy_timeout_ms)
+        upgrade(engine)
+        app.state.engine = engine
+        app.state.session_factory = make_session_factory(engine)
+        try:
+            yield
+        finally:
+            engine.dispose()
+
+    app = FastAPI(
+        title="riskfit",
+        version=__version__,
+        description=DESCRIPTION,
+        lifespan=lifespan,
+        responses={
+            404: {"model": ErrorResponse, "description": "Unknown model, version or path."},
+            422: {"model": ErrorResponse, "description": "Invalid input or no valid fit."},
+        },
+    )
+    app.state.settings = settings
+    app.state.metrics = AppMetrics()
+    app.state.model_cache = {}
+    install_error_handlers(app)
+    for router in _routers():
+        app.include_router(router)
+    app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
+    return app

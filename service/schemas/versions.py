@@ -1,0 +1,235 @@
+"""Fitted versions: ``VersionSpec`` / ``VersionCreate`` (requests), ``VersionPublic``,
+``VersionSummary``, ``VersionList`` and the term-table pieces.
+
+A fit request is a feature spec, fit options and data. Over JSON the data is
+``{"columns": {name: [values]}}`` or ``{"rows": [{name: value}]}``; over multipart the
+spec is the JSON form part ``spec`` and the data is the file part ``data`` (CSV or Parquet).
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+from service.schemas.common import StrictModel
+
+__all__ = [
+    "CellValue",
+    "FeatureSpec",
+    "FitData",
+    "FitOptions",
+    "FitStatisticsPublic",
+    "LRTestPublic",
+    "LineagePublic",
+    "TermPublic",
+    "TermTablePublic",
+    "VersionCreate",
+    "VersionList",
+    "VersionPublic",
+    "VersionSpec",
+    "VersionSummary",
+]
+
+NAME_PATTERN = r"^[^\x00-\x1f:=]{1,100}$"
+CellValue = float | int | str | None
+
+
+class FeatureSpec(StrictModel):
+    """One input feature and how it is encoded."""
+
+    name: str = Field(pattern=NAME_PATTERN, description="Column name (no ':' or '=').")
+    kind: Literal["numeric", "categorical", "spline"]
+    transform: Literal["log"] | None = Field(None, description="`log`: natural log, values > 0.")
+    reference: str | None = Field(None, max_length=200, description="Reference level.")
+    levels: list[str] | None = Field(
+        None, min_length=1, max_length=1000, description="Allowed levels (default: as seen)."
+    )
+    knots: int | list[float] | None = Field(
+        None, description="Spline knots: a count 3..7 or quantiles in (0, 1)."
+    )
+
+
+class FitOptions(StrictModel):
+    """How the likelihood is maximised and how intervals are computed."""
+
+    method: Literal["mle", "firth", "ridge"] = "mle"
+    ridge_lambda: float = Field(0.0, ge=0.0, le=1e6, description="L2 penalty (ridge only).")
+    weights: str | None = Field(None, description="Name of a data column of case weights >= 0.")
+    offset: str | None = Field(None, description="Name of a data column added to the logit.")
+    confidence_level: float | None = Field(
+        None, gt=0.0, lt=1.0, description="Interval level (default: the service setting, 0.95)."
+    )
+    profile_intervals: bool = Field(
+        False, description="Profile-likelihood intervals instead of Wald (slower, better)."
+    )
+    max_iter: int = Field(100, ge=1, le=1000, description="Newton iteration cap.")
+
+
+class VersionSpec(StrictModel):
+    """Everything of a fit request except the data (the multipart `spec` part)."""
+
+    features: list[FeatureSpec] = Field(min_length=1, max_length=200)
+    interactions: list[tuple[str, str]] = Field(default_factory=list, max_length=200)
+    outcome: str = Field("outcome", pattern=NAME_PATTERN, description="0/1 outcome column.")
+    options: FitOptions = Field(default_factory=FitOptions)
+    note: str | None = Field(None, max_length=2000)
+    description: str | None = Field(
+        None, max_length=2000, description="Model description (kept on the first fit)."
+    )
+
+
+class FitData(StrictModel):
+    """Training data: exactly one of `columns` or `rows`."""
+
+    columns: dict[str, list[CellValue]] | None = None
+    rows: list[dict[str, CellValue]] | None = None
+
+    @model_validator(mode="after")
+    def _exactly_one(self) -> FitData:
+        if (self.columns is None) == (self.rows is None):
+            raise ValueError("give exactly one of data.columns or data.rows")
+        return self
+
+
+_EXAMPLE_SPEC: dict[str, Any] = {
+    "features": [
+        {"name": "age_years", "kind": "numeric"},
+        {"name": "diameter_mm", "kind": "numeric", "transform": "log"},
+        {"name": "material", "kind": "categorical", "reference": "PVC"},
+        {"name": "soil", "kind": "categorical", "reference": "low"},
+        {"name": "prior_breaks_5y", "kind": "numeric"},
+    ],
+    "outcome": "outcome",
+    "options": {"method": "mle", "confidence_level": 0.95},
+    "note": "year-one segments",
+}
+
+
+class VersionCreate(VersionSpec):
+    """JSON body of ``POST /risk-models/{model}/versions``."""
+
+    model_config = ConfigDict(
+        json_schema_extra={
+            "examples": [
+                {
+                    **_EXAMPLE_SPEC,
+                    "data": {
+                        "columns": {
+                            "age_years": [72, 15, 48, 90, 33, 61],
+                            "diameter_mm": [150, 200, 100, 150, 300, 100],
+                            "material": [
+                                "cast iron",
+                                "PVC",
+                                "ductile iron",
+                                "cast iron",
+                                "PVC",
+                                "asbestos cement",
+                            ],
+                            "soil": ["high", "low", "moderate", "high", "low", "moderate"],
+                            "prior_breaks_5y": [2, 0, 0, 3, 0, 1],
+                            "outcome": [1, 0, 0, 1, 0, 0],
+                        }
+                    },
+                }
+            ]
+        }
+    )
+    data: FitData
+
+
+class TermPublic(BaseModel):
+    name: str
+    estimate: float
+    std_error: float
+    z: float
+    p_value: float
+    ci_lower: float
+    ci_upper: float
+    odds_ratio: float
+    odds_ratio_ci_lower: float
+    odds_ratio_ci_upper: float
+
+
+class TermTablePublic(BaseModel):
+    confidence_level: float
+    ci_method: str = Field(description="`wald` or `profile-likelihood`.")
+    n_obs: int
+    n_events: float
+    terms: list[TermPublic]
+
+
+class LRTestPublic(BaseModel):
+    name: str = Field(description="Feature, interaction `a:b`, or `global`.")
+    statistic: float
+    df: int
+    p_value: float
+
+
+class FitStatisticsPublic(BaseModel):
+    n_obs: int
+    n_events: float = Field(description="Weighted count of outcome 1.")
+    sum_weights: float
+    method: str
+    ridge_lambda: float
+    loglik: float
+    penalized_loglik: float
+    null_loglik: float
+    deviance: float
+    null_deviance: float
+    aic: float
+    bic: float
+    mcfadden_r2: float
+    converged: bool
+    iterations: int
+    stop_reason: str
+    global_lr_test: LRTestPublic | None
+    drop_term_tests: list[LRTestPublic] = Field(
+        description="Likelihood-ratio test of dropping each feature (all its columns)."
+    )
+    apparent_auc: float | None = Field(None, description="c-statistic on the training data.")
+    apparent_brier: float | None = Field(None, description="Brier score on the training data.")
+
+
+class LineagePublic(BaseModel):
+    parent: int | None
+    origin: str = Field(description="`fit`, `intercept`, `recalibrate` or `refit`.")
+    details: dict[str, Any] = Field(default_factory=dict)
+
+
+class VersionSummary(BaseModel):
+    number: int
+    created_at: datetime
+    method: str
+    n_obs: int
+    n_events: float
+    origin: str
+    parent: int | None
+    is_champion: bool
+    note: str | None
+
+
+class VersionList(BaseModel):
+    model: str
+    items: list[VersionSummary]
+    count: int
+
+
+class VersionPublic(BaseModel):
+    """One stored version: terms, fit statistics, encoding and lineage."""
+
+    model: str
+    number: int
+    created_at: datetime
+    is_champion: bool
+    spec: dict[str, Any]
+    options: dict[str, Any]
+    encoding: dict[str, Any]
+    term_table: TermTablePublic
+    fit_statistics: FitStatisticsPublic
+    warnings: list[str]
+    training_ranges: dict[str, Any]
+    data_fingerprint: str = Field(description="SHA-256 of the canonical training data.")
+    lineage: LineagePublic
+    note: str | None
