@@ -1,0 +1,170 @@
+"""Detect data that admit no (finite, unique) maximum-likelihood logistic fit.
+
+* single outcome class, and no more rows (with positive weight) than terms;
+* rank deficiency: eigen-decomposition of the scaled cross-product
+  ``D^-1/2 X'WX D^-1/2`` (D its diagonal); eigenvectors of eigenvalues below
+  ``RANK_TOL`` name the collinear terms;
+* separation (Albert & Anderson 1984, *Biometrika* 71:1-10): the MLE does not
+  exist iff some direction ``d != 0`` has ``s_i x_i'd >= 0`` for every row,
+  ``s_i = 2 y_i - 1``, with at least one strict inequality. Following Konis
+  (2007, DPhil thesis, Oxford, "Linear programming algorithms for detecting
+  separated data in binary logistic regression models"), this is the linear
+  programme ``max sum_i s_i x_i'd  s.t.  s_i x_i'd >= 0, -1 <= d_j <= 1``,
+  solved with ``scipy.optimize.linprog`` (HiGHS) when the rows fit in
+  ``LP_MAX_CELLS``; a positive optimum is separation and the non-zero entries of
+  ``d`` name the terms whose estimates diverge. Larger data use the divergence
+  signature of Newton's method instead: a standard error that is huge on the
+  scale of the term (``se_j * sd_j > DIVERGED_SE``).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+from scipy.optimize import linprog
+
+from service.errors import (
+    RankDeficientError,
+    SeparationError,
+    SingleClassError,
+    TooFewObservationsError,
+)
+
+from .blocks import BlockSource
+from .likelihood import DataSummary
+
+__all__ = [
+    "check_counts",
+    "check_rank",
+    "check_separation",
+    "collinear_terms",
+    "separating_direction",
+]
+
+RANK_TOL = 1e-10
+LP_MAX_CELLS = 2_000_000
+DIVERGED_SE = 5.0
+FIRTH_REMEDY = 'refit with method="firth" (bias-reduced, finite under separation) or "ridge"'
+
+
+def check_counts(summary: DataSummary, p: int) -> None:
+    """Raise for a single outcome class or for no more positive-weight rows than terms."""
+    if summary.sum_weights <= 0 or summary.n_events <= 0 or summary.n_events >= summary.sum_weights:
+        only = "0 (no event)" if summary.n_events <= 0 else "1 (event)"
+        raise SingleClassError(
+            f"every outcome is {only}; a logistic model needs both classes",
+            field="y",
+            value=f"{summary.n_events:g} events in {summary.sum_weights:g} weighted rows",
+            remedy="fit on data that contain both events and non-events",
+            details={"n_obs": summary.n_obs, "n_events": summary.n_events},
+        )
+    if summary.n_positive <= p:
+        raise TooFewObservationsError(
+            f"{summary.n_positive} rows with positive weight for {p} terms; need more rows than terms",
+            field="X",
+            value=f"{summary.n_positive} rows, {p} terms",
+            remedy="add rows or remove terms (fewer features, levels or spline knots)",
+            details={"n_obs": summary.n_positive, "n_terms": p},
+        )
+
+
+def collinear_terms(xtwx: np.ndarray, term_names: Sequence[str]) -> list[list[str]]:
+    """Groups of terms in exact (or numerically exact) linear dependence; [] if full rank."""
+    d = np.sqrt(np.clip(np.diag(xtwx), 0.0, None))
+    groups: list[list[str]] = [[term_names[j]] for j in np.flatnonzero(d == 0)]
+    live = np.flatnonzero(d > 0)
+    if live.size:
+        S = xtwx[np.ix_(live, live)] / np.outer(d[live], d[live])
+        vals, vecs = np.linalg.eigh(S)
+        for k in np.flatnonzero(vals < RANK_TOL * max(float(vals[-1]), 1.0)):
+            v = np.abs(vecs[:, k])
+            groups.append([term_names[live[j]] for j in np.flatnonzero(v > 1e-3 * v.max())])
+    return groups
+
+
+def check_rank(xtwx: np.ndarray, term_names: Sequence[str]) -> None:
+    """Raise :class:`RankDeficientError` naming the collinear terms."""
+    groups = collinear_terms(xtwx, term_names)
+    if groups:
+        terms = sorted({t for g in groups for t in g}, key=list(term_names).index)
+        raise RankDeficientError(
+            "the design matrix is rank deficient: "
+            + "; ".join(" ~ ".join(g) for g in groups)
+            + (" (constant zero column)" if any(len(g) == 1 for g in groups) else ""),
+            field="X",
+            value=terms,
+            remedy="remove one term of each collinear group (or a redundant categorical level)",
+            details={"terms": terms, "groups": groups},
+        )
+
+
+def _collect(blocks: BlockSource) -> tuple[np.ndarray, np.ndarray]:
+    xs, ss = [], []
+    for b in blocks():
+        keep = slice(None) if b.weights is None else b.weights > 0
+        xs.append(b.X[keep])
+        ss.append(2.0 * b.y[keep] - 1.0)
+    return np.concatenate(xs), np.concatenate(ss)
+
+
+def separating_direction(X: np.ndarray, s: np.ndarray) -> np.ndarray | None:
+    """Direction ``d`` (in X's units) with ``s_i x_i'd >= 0`` for all rows, or ``None``."""
+    scale = np.abs(X).max(axis=0)
+    scale[scale == 0] = 1.0
+    A = (X / scale) * s[:, None]
+    res = linprog(
+        -A.sum(axis=0),
+        A_ub=-A,
+        b_ub=np.zeros(A.shape[0]),
+        bounds=[(-1.0, 1.0)] * A.shape[1],
+        method="highs",
+    )
+    if res.status != 0 or -res.fun <= 1e-9 * (1.0 + float(np.abs(A).sum())):
+        return None
+    d = np.where(np.abs(res.x) > 1e-7, res.x, 0.0)
+    margins = A @ d
+    if margins.min() < -1e-8 or margins.max() <= 1e-8:
+        return None
+    return d / scale  # type: ignore[no-any-return]
+
+
+def _raise_separation(terms: list[str], how: str) -> None:
+    raise SeparationError(
+        "complete or quasi-complete separation: the maximum-likelihood estimate does not "
+        f"exist; estimates diverge for {', '.join(terms)} ({how})",
+        field="X",
+        value=terms,
+        remedy=FIRTH_REMEDY,
+        details={"terms": terms, "detected_by": how},
+    )
+
+
+def check_separation(
+    blocks: BlockSource,
+    summary: DataSummary,
+    coef: np.ndarray,
+    std_error: np.ndarray,
+    term_names: Sequence[str],
+    intercept_index: int | None,
+) -> None:
+    """Raise :class:`SeparationError` if the data are separated (see module docstring)."""
+    p = coef.shape[0]
+    if summary.n_positive * p <= LP_MAX_CELLS:
+        X, s = _collect(blocks)
+        d = separating_direction(X, s)
+        if d is not None:
+            nz = [j for j in np.flatnonzero(d) if j != intercept_index] or list(np.flatnonzero(d))
+            _raise_separation([term_names[j] for j in nz], "linear programme")
+        return
+    mean = summary.xtw / summary.sum_weights
+    var = np.clip(np.diag(summary.xtwx) / summary.sum_weights - mean**2, 0.0, None)
+    sd = np.where(var > 0, np.sqrt(var), 1.0)
+    diverged = [
+        term_names[j]
+        for j in range(p)
+        if j != intercept_index
+        and (not np.isfinite(std_error[j]) or std_error[j] * sd[j] > DIVERGED_SE)
+    ]
+    if diverged:
+        _raise_separation(diverged, "diverging estimates in Newton iterations")

@@ -1,0 +1,320 @@
+"""Fit a logistic model by (penalised) maximum likelihood over blocks of rows.
+
+``fit_logistic`` takes arrays; ``fit_logistic_blocks`` takes a block source
+(see :mod:`service.stats.blocks`), so the same mathematics fits data held in
+memory, streamed from files or spread over a cluster.
+
+Steps: one scan pass (checks, counts, X'WX for the rank test and, without an
+offset, the full first Newton pass for free), Newton-Raphson from the
+intercept-only solution ``logit(ybar)`` (:mod:`service.stats.newton`), then the
+existence checks (:mod:`service.stats.diagnostics`) and the statistics.
+
+Definitions: deviance ``-2 loglik`` (0/1 outcomes, so the saturated
+log-likelihood is 0); ``aic = -2 loglik + 2 p``; ``bic = -2 loglik + p log(sum_weights)``
+(``sum_weights = n_obs`` without weights); McFadden's ``R^2 = 1 - loglik / null_loglik``.
+The null model is intercept-only with the same weights and offset (offset-only if
+there is no intercept). For penalised methods these use the unpenalised loglik and p.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+from scipy.linalg import cho_factor, cho_solve
+from scipy.special import logit
+
+from service.errors import RankDeficientError, SpecError
+
+from .blocks import BlockSource, array_blocks, sub_blocks
+from .diagnostics import check_counts, check_rank, check_separation
+from .likelihood import DataSummary, Totals, loglik_pass, scan
+from .newton import Objective, State, newton
+
+__all__ = ["LogisticFit", "Method", "constrained_fit", "fit_logistic", "fit_logistic_blocks"]
+
+Method = Literal["mle", "firth", "ridge"]
+_METHODS = ("mle", "firth", "ridge")
+
+
+@dataclass(frozen=True)
+class LogisticFit:
+    """A fitted logistic model; arrays are (p,) or (p, p) in ``term_names`` order."""
+
+    term_names: tuple[str, ...]
+    coef: np.ndarray
+    cov: np.ndarray
+    std_error: np.ndarray
+    loglik: float
+    penalized_loglik: float
+    null_loglik: float
+    deviance: float
+    null_deviance: float
+    n_obs: int
+    sum_weights: float
+    n_events: float
+    method: str
+    ridge_lambda: float
+    converged: bool
+    iterations: int
+    stop_reason: str
+    aic: float
+    bic: float
+    mcfadden_r2: float
+    warnings: tuple[str, ...]
+    intercept_index: int | None = 0
+    null_penalized_loglik: float = float("nan")  # intercept-only, same penalty (Firth LR tests)
+
+
+def _options(
+    n_terms: int,
+    term_names: Sequence[str] | None,
+    method: str,
+    ridge_lambda: float,
+    intercept_index: int | None,
+    max_iter: int,
+    tol: float,
+) -> tuple[str, ...]:
+    if method not in _METHODS:
+        raise SpecError(
+            f"unknown fitting method {method!r}",
+            field="method",
+            value=method,
+            remedy='use "mle", "firth" or "ridge"',
+        )
+    if not np.isfinite(ridge_lambda) or ridge_lambda < 0:
+        raise SpecError(
+            "ridge_lambda must be a finite number >= 0",
+            field="ridge_lambda",
+            value=ridge_lambda,
+            remedy="use e.g. 1.0",
+        )
+    if ridge_lambda > 0 and method != "ridge":
+        raise SpecError(
+            f'ridge_lambda is only used with method="ridge", not {method!r}',
+            field="ridge_lambda",
+            value=ridge_lambda,
+            remedy='set method="ridge" or drop ridge_lambda',
+        )
+    if intercept_index is not None and not 0 <= intercept_index < n_terms:
+        raise SpecError(
+            f"intercept_index {intercept_index} is not a column of a {n_terms}-term design",
+            field="intercept_index",
+            value=intercept_index,
+            remedy="give the column of ones, or None for a model without intercept",
+        )
+    if max_iter < 1 or not tol > 0:
+        raise SpecError(
+            "max_iter must be >= 1 and tol > 0",
+            field="max_iter" if max_iter < 1 else "tol",
+            value=max_iter if max_iter < 1 else tol,
+            remedy="use the defaults (max_iter=100, tol=1e-10)",
+        )
+    if term_names is None:
+        return tuple("intercept" if j == intercept_index else f"x{j}" for j in range(n_terms))
+    names = tuple(str(t) for t in term_names)
+    if len(names) != n_terms or len(set(names)) != n_terms:
+        raise SpecError(
+            f"term_names must be {n_terms} distinct names",
+            field="term_names",
+            value=list(names),
+            remedy="give one distinct name per column of X",
+        )
+    return names
+
+
+def _start_totals(s: DataSummary, coef: np.ndarray, intercept_index: int | None) -> Totals:
+    """Log-likelihood, score and information at the constant-eta start, without a pass."""
+    a = 0.0 if intercept_index is None else float(coef[intercept_index])
+    mu = 1.0 / (1.0 + np.exp(-a))
+    loglik = s.n_events * a - s.sum_weights * float(np.logaddexp(0.0, a))
+    return Totals(loglik, s.xtwy - mu * s.xtw, mu * (1.0 - mu) * s.xtwx, 0)
+
+
+def _null_loglik(
+    blocks: BlockSource, s: DataSummary, intercept_index: int | None, method: str
+) -> tuple[float, float]:
+    """(unpenalised MLE, penalised) log-likelihood of the intercept-only model."""
+    if intercept_index is None:
+        ll = loglik_pass(sub_blocks(blocks, []), np.zeros(0), want_info=False).loglik
+        return ll, ll
+    null_blocks = sub_blocks(blocks, [intercept_index])
+    if s.has_offset:
+        obj = Objective(null_blocks, "mle", 0.0, np.zeros(1))
+        start = np.array([logit(s.n_events / s.sum_weights)])
+        st = obj.evaluate(start)
+        ll = (
+            newton(obj, st, np.ones(1, bool), max_iter=100, tol=1e-12).state.loglik
+            if st
+            else -np.inf
+        )
+    else:
+        ybar = s.n_events / s.sum_weights
+        ll = s.n_events * np.log(ybar) + (s.sum_weights - s.n_events) * np.log1p(-ybar)
+    if method != "firth":
+        return float(ll), float(ll)
+    fobj = Objective(null_blocks, "firth", 0.0, np.zeros(1))
+    fst = fobj.evaluate(np.array([logit(s.n_events / s.sum_weights)]))
+    pen = newton(fobj, fst, np.ones(1, bool), max_iter=100, tol=1e-12).state if fst else None
+    return float(ll), float(pen.penalized_loglik) if pen else float("nan")
+
+
+def fit_logistic_blocks(
+    blocks: BlockSource,
+    *,
+    n_terms: int,
+    term_names: Sequence[str] | None = None,
+    method: Method = "mle",
+    ridge_lambda: float = 0.0,
+    intercept_index: int | None = 0,
+    max_iter: int = 100,
+    tol: float = 1e-10,
+) -> LogisticFit:
+    """Fit by Newton-Raphson over a block source (see module docstring for definitions).
+
+    Raises SingleClassError, TooFewObservationsError, RankDeficientError,
+    SeparationError (``details["terms"]``; mle only), DataError, SpecError.
+    Non-convergence is reported in ``converged`` / ``stop_reason``, not raised.
+    """
+    names = _options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
+    p = n_terms
+    summary = scan(blocks, p, names)
+    check_counts(summary, p)
+    if method != "ridge" or ridge_lambda == 0:
+        check_rank(summary.xtwx, names)
+    mask = np.ones(p)
+    if intercept_index is not None:
+        mask[intercept_index] = 0.0
+    obj = Objective(blocks, method, ridge_lambda, mask)
+    coef0 = np.zeros(p)
+    if intercept_index is not None:
+        coef0[intercept_index] = logit(summary.n_events / summary.sum_weights)
+    if summary.has_offset:
+        state0 = obj.evaluate(coef0)
+    else:
+        state0 = obj.from_totals(coef0, _start_totals(summary, coef0, intercept_index))
+    if state0 is None:
+        raise RankDeficientError(
+            "the information matrix is singular at the start",
+            field="X",
+            value=list(names),
+            remedy="remove redundant terms",
+            details={"terms": list(names)},
+        )
+    res = newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
+    return _finish(blocks, summary, res.state, names, method, ridge_lambda, intercept_index, res)
+
+
+def _finish(
+    blocks: BlockSource,
+    summary: DataSummary,
+    st: State,
+    names: tuple[str, ...],
+    method: str,
+    ridge_lambda: float,
+    intercept_index: int | None,
+    res: object,
+) -> LogisticFit:
+    p = st.coef.shape[0]
+    try:
+        cov = cho_solve(cho_factor(st.info, lower=True), np.eye(p))
+    except np.linalg.LinAlgError:
+        cov = np.full((p, p), np.inf)
+    cov = 0.5 * (cov + cov.T)
+    se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    if method == "mle":
+        check_separation(blocks, summary, st.coef, se, names, intercept_index)
+    converged = bool(getattr(res, "converged", False))
+    stop = str(getattr(res, "stop_reason", ""))
+    warnings: list[str] = []
+    if not converged:
+        stop += '; try a larger max_iter, or method="firth" / "ridge" if estimates diverge'
+        warnings.append("not converged: " + stop)
+    if st.n_extreme:
+        warnings.append(f"{st.n_extreme} fitted probabilities are numerically 0 or 1")
+    null_ll, null_pen = _null_loglik(blocks, summary, intercept_index, method)
+    ll = st.loglik
+    return LogisticFit(
+        term_names=names,
+        coef=st.coef,
+        cov=cov,
+        std_error=se,
+        loglik=ll,
+        penalized_loglik=st.penalized_loglik,
+        null_loglik=null_ll,
+        deviance=-2.0 * ll,
+        null_deviance=-2.0 * null_ll,
+        n_obs=summary.n_obs,
+        sum_weights=summary.sum_weights,
+        n_events=summary.n_events,
+        method=method,
+        ridge_lambda=float(ridge_lambda),
+        converged=converged,
+        iterations=int(getattr(res, "iterations", 0)),
+        stop_reason=stop,
+        aic=-2.0 * ll + 2.0 * p,
+        bic=-2.0 * ll + p * float(np.log(summary.sum_weights)),
+        mcfadden_r2=1.0 - ll / null_ll if null_ll < 0 else float("nan"),
+        warnings=tuple(warnings),
+        intercept_index=intercept_index,
+        null_penalized_loglik=null_pen,
+    )
+
+
+def fit_logistic(
+    X: np.ndarray,
+    y: np.ndarray,
+    *,
+    weights: np.ndarray | None = None,
+    offset: np.ndarray | None = None,
+    term_names: Sequence[str] | None = None,
+    method: Method = "mle",
+    ridge_lambda: float = 0.0,
+    intercept_index: int | None = 0,
+    max_iter: int = 100,
+    tol: float = 1e-10,
+    block_rows: int = 65536,
+) -> LogisticFit:
+    """:func:`fit_logistic_blocks` over in-memory arrays (X (n, p), y (n,) in {0, 1})."""
+    blocks = array_blocks(X, y, weights, offset, block_rows)
+    return fit_logistic_blocks(
+        blocks,
+        n_terms=np.shape(X)[1] if np.ndim(X) == 2 else 0,
+        term_names=term_names,
+        method=method,
+        ridge_lambda=ridge_lambda,
+        intercept_index=intercept_index,
+        max_iter=max_iter,
+        tol=tol,
+    )
+
+
+def constrained_fit(
+    blocks: BlockSource, fit: LogisticFit, fixed: dict[int, float], *, tol: float = 1e-10
+) -> State:
+    """Maximise the fit's (penalised) log-likelihood with ``coef[j] = fixed[j]`` held.
+
+    Starts at the fit's estimate; the penalty is the full-model one (Firth: the
+    whole information matrix), as used by profile intervals and LR tests.
+    """
+    p = fit.coef.shape[0]
+    mask = np.ones(p)
+    if fit.intercept_index is not None:
+        mask[fit.intercept_index] = 0.0
+    obj = Objective(blocks, fit.method, fit.ridge_lambda, mask)
+    coef = fit.coef.copy()
+    free = np.ones(p, bool)
+    for j, v in fixed.items():
+        coef[j] = v
+        free[j] = False
+    state = obj.evaluate(coef)
+    if state is None:
+        raise RankDeficientError(
+            "information matrix singular in a constrained refit",
+            field="X",
+            value=[fit.term_names[j] for j in fixed],
+            remedy="check the model for collinear terms",
+        )
+    return newton(obj, state, free, max_iter=200, tol=tol).state
