@@ -1,0 +1,189 @@
+"""Outcome ingestion: idempotent, conflict-reporting, safe under concurrent writers."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from datetime import datetime
+from typing import Any
+
+from sqlalchemy import insert, select
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
+
+from models_store._types import utcnow
+from models_store._util import chunks
+from models_store.orm import Outcome, RiskModel, Score
+from service.errors import DataError
+
+__all__ = ["OutcomeItem", "OutcomeResult", "add_outcomes", "get_outcome"]
+
+MAX_ATTEMPTS = 5
+
+
+@dataclass(frozen=True)
+class OutcomeItem:
+    """What happened to item ``index`` of the request."""
+
+    index: int
+    score_id: str | None
+    key: str | None
+    outcome: int
+    existing: int | None = None  # the stored outcome, for duplicates and conflicts
+    reason: str | None = None  # why it is unknown or in conflict
+
+
+@dataclass(frozen=True)
+class OutcomeResult:
+    """Partition of the request: every item lands in exactly one list."""
+
+    accepted: list[OutcomeItem] = field(default_factory=list)
+    duplicates: list[OutcomeItem] = field(default_factory=list)
+    conflicts: list[OutcomeItem] = field(default_factory=list)
+    unknown: list[OutcomeItem] = field(default_factory=list)
+
+
+@dataclass
+class _Item:
+    index: int
+    score_id: str | None
+    key: str | None
+    outcome: int
+    observed_at: datetime | None
+
+
+def _parse(items: Sequence[Mapping[str, Any]]) -> list[_Item]:
+    parsed = []
+    for i, item in enumerate(items):
+        value = item.get("outcome")
+        if isinstance(value, bool) or value not in (0, 1):
+            raise DataError(
+                "an outcome must be 0 or 1",
+                field=f"outcomes[{i}].outcome",
+                value=value,
+                remedy="send 1 if the event happened, 0 if it did not",
+            )
+        score_id, key = item.get("score_id"), item.get("key")
+        if score_id is None and key is None:
+            raise DataError(
+                "an outcome must name its score",
+                field=f"outcomes[{i}]",
+                value=None,
+                remedy="give the score_id returned by the scores endpoint, or the record's key",
+            )
+        parsed.append(_Item(i, score_id, key, int(value), item.get("observed_at")))
+    return parsed
+
+
+def add_outcomes(
+    *,
+    session: Session,
+    model: RiskModel,
+    items: Sequence[Mapping[str, Any]],
+    received_at: datetime | None = None,
+) -> OutcomeResult:
+    """Join outcomes to ``model``'s scores; each item names ``score_id`` or ``key``.
+
+    * accepted: written now;
+    * duplicates: the score already has this same outcome (stored or earlier in the request);
+    * conflicts: the score already has the other outcome (not written; first one stands);
+    * unknown: no score of this model has that id or key (or id and key disagree).
+
+    Items: ``{"score_id"? , "key"?, "outcome": 0|1, "observed_at"?: aware datetime}``
+    (``observed_at`` defaults to ``received_at``, itself defaulting to now). Concurrent
+    ingestion of the same score: the unique constraint on ``outcome.score_id`` refuses the later
+    insert, inside a savepoint; the batch is then re-classified against what is stored now.
+    """
+    parsed = _parse(items)
+    now = received_at or utcnow()
+    resolved, unknown = _resolve(session, model, parsed)
+    for _attempt in range(MAX_ATTEMPTS):
+        stored = _stored_outcomes(session, [sid for sid, _ in resolved])
+        result = _classify(resolved, stored, unknown)
+        accepted = {a.index for a in result.accepted}
+        rows = [
+            {
+                "score_id": sid,
+                "model_id": model.id,
+                "outcome": item.outcome,
+                "observed_at": item.observed_at or now,
+                "received_at": now,
+            }
+            for sid, item in resolved
+            if item.index in accepted
+        ]
+        try:
+            with session.begin_nested():
+                for part in chunks(rows):
+                    session.execute(insert(Outcome), list(part))
+        except IntegrityError:
+            continue  # someone stored one of these meanwhile: look again
+        return result
+    raise RuntimeError(f"outcome ingestion kept colliding after {MAX_ATTEMPTS} attempts")
+
+
+def _resolve(
+    session: Session, model: RiskModel, parsed: list[_Item]
+) -> tuple[list[tuple[str, _Item]], list[OutcomeItem]]:
+    """Map each item to a stored score id of ``model``; the rest are unknown."""
+    ids = sorted({p.score_id for p in parsed if p.score_id is not None})
+    keys = sorted({p.key for p in parsed if p.key is not None})
+    by_id: dict[str, str | None] = {}
+    for part in chunks(ids):
+        stmt = select(Score.id, Score.key).where(Score.model_id == model.id, Score.id.in_(part))
+        by_id.update({sid: key for sid, key in session.execute(stmt)})
+    by_key: dict[str, str] = {}
+    for part in chunks(keys):
+        stmt = select(Score.key, Score.id).where(Score.model_id == model.id, Score.key.in_(part))
+        by_key.update({key: sid for key, sid in session.execute(stmt) if key is not None})
+    resolved: list[tuple[str, _Item]] = []
+    unknown: list[OutcomeItem] = []
+    for p in parsed:
+        sid = p.score_id if p.score_id in by_id else None
+        if p.score_id is None and p.key in by_key:
+            sid = by_key[p.key]
+        reason = None
+        if sid is None:
+            reason = "no score of this model has this score_id or key"
+        elif p.key is not None and p.score_id is not None and by_id.get(sid) != p.key:
+            reason = "score_id and key name different scores"
+        if reason is None and sid is not None:
+            resolved.append((sid, p))
+        else:
+            unknown.append(OutcomeItem(p.index, p.score_id, p.key, p.outcome, reason=reason))
+    return resolved, unknown
+
+
+def _stored_outcomes(session: Session, score_ids: Sequence[str]) -> dict[str, int]:
+    stored: dict[str, int] = {}
+    for part in chunks(sorted(set(score_ids))):
+        stmt = select(Outcome.score_id, Outcome.outcome).where(Outcome.score_id.in_(part))
+        stored.update({sid: int(value) for sid, value in session.execute(stmt)})
+    return stored
+
+
+def _classify(
+    resolved: list[tuple[str, _Item]], stored: dict[str, int], unknown: list[OutcomeItem]
+) -> OutcomeResult:
+    result = OutcomeResult(unknown=list(unknown))
+    claimed = dict(stored)  # score id -> outcome that stands (stored, or first in this request)
+    for sid, p in resolved:
+        existing = claimed.get(sid)
+        item = OutcomeItem(p.index, sid, p.key, p.outcome, existing=existing)
+        if existing is None:
+            claimed[sid] = p.outcome
+            result.accepted.append(item)
+        elif existing == p.outcome:
+            result.duplicates.append(item)
+        else:
+            reason = "the score already has the other outcome; the first one stands"
+            result.conflicts.append(
+                OutcomeItem(p.index, sid, p.key, p.outcome, existing=existing, reason=reason)
+            )
+    result.unknown.sort(key=lambda u: u.index)
+    return result
+
+
+def get_outcome(*, session: Session, score_id: str) -> Outcome | None:
+    """The outcome stored for ``score_id``, or None."""
+    return session.scalar(select(Outcome).where(Outcome.score_id == score_id))
