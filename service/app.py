@@ -22,6 +22,7 @@ from service.api.errors import install_error_handlers
 from service.api.metrics import AppMetrics, MetricsMiddleware
 from service.config import Settings, get_settings
 from service.schemas import ErrorResponse
+from service.scoring import VersionCache
 
 __all__ = ["ROUTERS", "create_app"]
 
@@ -86,7 +87,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     )
     app.state.settings = settings
     app.state.metrics = AppMetrics()
-    app.state.model_cache = {}
+    app.state.version_cache = VersionCache()
     install_error_handlers(app)
     for router in _routers():
         app.include_router(router)

@@ -22,12 +22,11 @@ from dataclasses import dataclass
 from typing import Annotated, Literal
 
 from fastapi import Depends, Path, Request
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from models_store.models import require_model
 from models_store.orm import RiskModel
 from service.config import Settings
-from service.errors import ModelNotFoundError
 
 __all__ = [
     "ROLE_RANK",
@@ -95,16 +94,7 @@ SessionDep = Annotated[Session, Depends(get_session)]
 
 def get_model(model: ModelName, session: SessionDep) -> RiskModel:
     """Load the model named in the path or raise ``ModelNotFoundError`` (404)."""
-    found = session.scalars(select(RiskModel).where(RiskModel.name == model)).one_or_none()
-    if found is None:
-        raise ModelNotFoundError(
-            f"No risk model is named {model!r}.",
-            field="path.model",
-            value=model,
-            remedy="List models with GET /risk-models, or fit one with "
-            f"POST /risk-models/{model}/versions.",
-        )
-    return found
+    return require_model(session=session, name=model)
 
 
 ModelDep = Annotated[RiskModel, Depends(get_model)]

@@ -1,0 +1,188 @@
+"""Versions: ``POST /risk-models/{model}/versions`` (fit), ``GET .../versions[/{n}]``.
+
+The fit accepts ``application/json`` (:class:`~service.schemas.VersionCreate`) or
+``multipart/form-data`` with a JSON part ``spec`` (:class:`~service.schemas.VersionSpec`) and
+a file part ``data`` (CSV with a header row, or Parquet).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi import APIRouter, Path, Request, status
+from fastapi.exceptions import RequestValidationError
+from pydantic import ValidationError
+from starlette.concurrency import run_in_threadpool
+from starlette.datastructures import UploadFile
+
+from models_store.champions import current_champion
+from models_store.orm import ModelVersion, RiskModel
+from models_store.versions import list_versions, require_version
+from service.api.deps import (
+    ModelDep,
+    ModelerAccess,
+    ModelName,
+    ScorerAccess,
+    SessionDep,
+    SettingsDep,
+)
+from service.data_io import columns_from_rows, read_table, table_columns, training_data
+from service.errors import DataError
+from service.fitting import fit_version, needed_columns
+from service.schemas import ErrorResponse, VersionCreate, VersionList, VersionPublic, VersionSpec
+from service.schemas.versions import _EXAMPLE_SPEC
+
+router = APIRouter(prefix="/risk-models/{model}/versions", tags=["versions"])
+
+VersionNumber = Path(ge=1, le=2_147_483_647, description="Version number (1, 2, ...).")
+
+
+def version_public(model: RiskModel, v: ModelVersion, champion: int | None) -> dict[str, Any]:
+    stats = dict(v.fit_stats)
+    return {
+        "model": model.name,
+        "number": v.number,
+        "created_at": v.created_at,
+        "is_champion": v.number == champion,
+        "spec": v.spec,
+        "options": {k: val for k, val in v.options.items() if k != "warnings"},
+        "encoding": v.encoding,
+        "term_table": v.term_table,
+        "fit_statistics": stats,
+        "warnings": list(v.options.get("warnings", [])),
+        "training_ranges": v.training_ranges,
+        "data_fingerprint": v.data_fingerprint,
+        "lineage": {"parent": v.parent_number, "origin": v.origin, "details": v.origin_details},
+        "note": v.note or None,
+    }
+
+
+def _validated(schema: type[VersionSpec], raw: bytes | str) -> Any:
+    try:
+        return schema.model_validate_json(raw)
+    except ValidationError as exc:
+        raise RequestValidationError(exc.errors(include_url=False)) from None
+
+
+async def _parse_fit_request(request: Request) -> tuple[VersionSpec, dict[str, Any], str]:
+    """Spec and raw columns from a JSON or multipart body, and the data layout."""
+    content_type = request.headers.get("content-type", "")
+    if content_type.startswith("multipart/form-data"):
+        async with request.form() as form:  # closes the spooled upload files
+            spec_part, data_part = form.get("spec"), form.get("data")
+            if spec_part is None or not isinstance(data_part, UploadFile):
+                raise DataError(
+                    "a multipart fit needs a JSON part 'spec' and a file part 'data'",
+                    field="spec" if spec_part is None else "data",
+                    value=None,
+                    remedy="send -F spec=@spec.json -F data=@segments.csv (or .parquet)",
+                )
+            spec_raw = await spec_part.read() if isinstance(spec_part, UploadFile) else spec_part
+            content = await data_part.read()
+            filename, upload_type = data_part.filename, data_part.content_type
+        spec = _validated(VersionSpec, spec_raw)
+        table = read_table(content, filename=filename, content_type=upload_type)
+        return spec, table_columns(table, needed_columns(spec)), "columns"
+    body: VersionCreate = _validated(VersionCreate, await request.body())
+    if body.data.rows is not None:
+        rows = columns_from_rows(body.data.rows, needed_columns(body), "data.rows")
+        return body, dict(rows), "rows"
+    return body, dict(body.data.columns or {}), "columns"
+
+
+@router.post(
+    "",
+    status_code=status.HTTP_201_CREATED,
+    response_model=VersionPublic,
+    summary="Fit a new version from data and a feature spec",
+    responses={409: {"model": ErrorResponse, "description": "Concurrent fit took the number."}},
+    openapi_extra={
+        "requestBody": {
+            "required": True,
+            "content": {
+                "application/json": {
+                    "schema": {"$ref": "#/components/schemas/VersionCreate"},
+                },
+                "multipart/form-data": {
+                    "schema": {
+                        "type": "object",
+                        "required": ["spec", "data"],
+                        "properties": {
+                            "spec": {
+                                "type": "string",
+                                "description": "VersionSpec as JSON",
+                                "example": _EXAMPLE_SPEC,
+                            },
+                            "data": {"type": "string", "format": "binary"},
+                        },
+                    }
+                },
+            },
+        }
+    },
+)
+async def post_version(
+    model: ModelName,
+    request: Request,
+    session: SessionDep,
+    settings: SettingsDep,
+    who: ModelerAccess,
+) -> dict[str, Any]:
+    spec, raw, layout = await _parse_fit_request(request)
+    options = spec.options
+    kinds = {f.name: f.kind for f in spec.features}
+
+    def work() -> dict[str, Any]:
+        data = training_data(
+            raw,
+            kinds=kinds,
+            outcome=spec.outcome,
+            weights=options.weights,
+            offset=options.offset,
+            layout=layout,
+        )
+        level = options.confidence_level or settings.default_confidence_level
+        m, v, _ = fit_version(
+            session=session,
+            model_name=model,
+            spec=spec,
+            data=data,
+            confidence_level=level,
+            key_id=who.key_id,
+        )
+        return version_public(m, v, current_champion(session=session, model=m))
+
+    answer = await run_in_threadpool(work)
+    metrics = request.app.state.metrics
+    metrics.versions_fitted.labels(model, options.method).inc()
+    metrics.fit_seconds.observe(answer["fit_statistics"].get("fit_seconds", 0.0))
+    return answer
+
+
+def _summary(v: ModelVersion, champion: int | None) -> dict[str, Any]:
+    return {
+        "number": v.number,
+        "created_at": v.created_at,
+        "method": v.method,
+        "n_obs": v.n_obs,
+        "n_events": v.n_events,
+        "origin": v.origin,
+        "parent": v.parent_number,
+        "is_champion": v.number == champion,
+        "note": v.note or None,
+    }
+
+
+@router.get("", response_model=VersionList, summary="Versions of a model")
+def get_versions(model: ModelDep, session: SessionDep, _: ScorerAccess) -> dict[str, Any]:
+    champion = current_champion(session=session, model=model)
+    items = [_summary(v, champion) for v in list_versions(session=session, model=model)]
+    return {"model": model.name, "items": items, "count": len(items)}
+
+
+@router.get("/{number}", response_model=VersionPublic, summary="One version in full")
+def get_version(
+    model: ModelDep, session: SessionDep, _: ScorerAccess, number: int = VersionNumber
+) -> dict[str, Any]:
+    v = require_version(session=session, model=model, number=number)
+    return version_public(model, v, current_champion(session=session, model=model))

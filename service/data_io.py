@@ -1,0 +1,313 @@
+"""Request data to typed numpy columns: JSON columns or rows, CSV and Parquet uploads.
+
+Everything a fit or a score batch reads passes through :func:`coerce_column`, which turns
+raw values into either a float64 array (``numeric``/``spline`` features, weights, offset)
+or an object array of ``str`` (``categorical``), and names the first bad cell in its error
+(``field`` like ``data.columns.age_years[17]`` or ``records[17].age_years``).
+
+Categorical values are compared as text: ``3`` and ``3.0`` both become ``"3"``, so a level
+coded as a number in a CSV file matches the same level sent as a JSON number.
+The outcome column must hold 0 and 1 only (``true``/``false`` are accepted as 1/0).
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pa_csv
+import pyarrow.parquet as pq
+
+from service.errors import DataError, MissingFeatureError
+
+__all__ = [
+    "NUMERIC_KINDS",
+    "FieldNamer",
+    "TrainingData",
+    "cell_namer",
+    "coerce_column",
+    "coerce_outcome",
+    "columns_from_rows",
+    "read_table",
+    "table_columns",
+    "training_data",
+]
+
+NUMERIC_KINDS = frozenset({"numeric", "spline"})
+FieldNamer = Callable[[int], str]
+_MISSING = object()
+
+
+@dataclass(frozen=True)
+class TrainingData:
+    """Validated training columns: ``columns[name]`` (n,), ``y`` (n,) float64 of 0/1."""
+
+    columns: dict[str, np.ndarray]
+    y: np.ndarray
+    weights: np.ndarray | None
+    offset: np.ndarray | None
+    n_obs: int
+
+
+def _level_text(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))
+    return str(value)
+
+
+def coerce_column(name: str, kind: str, values: Any, where: FieldNamer) -> np.ndarray:
+    """``values`` (a sequence, numpy or pyarrow array) as float64 or an object array of str.
+
+    Raises :class:`DataError` naming ``where(i)`` for the first missing, non-numeric or
+    non-finite value of a numeric column, or the first missing value of a categorical one.
+    """
+    if isinstance(values, pa.ChunkedArray | pa.Array):
+        return _coerce_arrow(name, kind, values, where)
+    seq = values if isinstance(values, Sequence | np.ndarray) else list(values)
+    if kind in NUMERIC_KINDS:
+        raw = np.asarray(seq) if not isinstance(seq, np.ndarray) else seq
+        if raw.ndim != 1 or raw.dtype.kind not in "fiu":
+            _raise_first_non_number(name, seq, where)  # None, text, bools, nested lists
+        try:
+            arr = np.asarray(raw, dtype=np.float64)
+        except (TypeError, ValueError, OverflowError):
+            arr = np.asarray([_float_or_inf(v) for v in seq], dtype=np.float64)
+        bad = np.flatnonzero(~np.isfinite(arr))
+        if bad.size:
+            i = int(bad[0])
+            raise DataError(
+                f"{name} must be a finite number, got {str(seq[i])[:40]}",
+                field=where(i),
+                value=seq[i] if seq[i] is not None else "null",
+                remedy=f"send a finite number for {name} (missing values are not imputed)",
+            )
+        return arr
+    out = np.empty(len(seq), dtype=object)
+    for i, v in enumerate(seq):
+        if v is None or (isinstance(v, float) and math.isnan(v)):
+            raise DataError(
+                f"categorical feature {name} has a missing value",
+                field=where(i),
+                value="null",
+                remedy=f"send one of the levels of {name} (missing values are not imputed)",
+            )
+        out[i] = v if isinstance(v, str) else _level_text(v)
+    return out
+
+
+def _float_or_inf(value: Any) -> float:
+    try:
+        return float(value)
+    except OverflowError:
+        return math.inf
+
+
+def _raise_first_non_number(name: str, seq: Sequence[Any], where: FieldNamer) -> None:
+    for i, v in enumerate(seq):
+        if v is None:
+            raise DataError(
+                f"numeric feature {name} has a missing value",
+                field=where(i),
+                value="null",
+                remedy=f"send a finite number for {name} (missing values are not imputed)",
+            )
+        if isinstance(v, bool) or not isinstance(v, int | float | np.integer | np.floating):
+            raise DataError(
+                f"numeric feature {name} must hold numbers, got {type(v).__name__} {v!r}",
+                field=where(i),
+                value=v,
+                remedy=f"send {name} as a JSON number, or declare it kind='categorical'",
+            )
+    if all(isinstance(v, int | float | np.integer | np.floating) for v in seq):
+        return  # plain numbers (huge integers included): the float conversion decides
+    raise DataError(
+        f"{name} is not a flat list of numbers",
+        field=where(0),
+        value=None,
+        remedy=f"send {name} as a list of numbers",
+    )
+
+
+def _coerce_arrow(name: str, kind: str, arr: Any, where: FieldNamer) -> np.ndarray:
+    if arr.null_count:
+        i = int(pc.index(pc.is_null(arr), True).as_py())
+        raise DataError(
+            f"column {name} has an empty cell",
+            field=where(i),
+            value="null",
+            remedy=f"fill every cell of {name} (missing values are not imputed)",
+        )
+    typ = arr.type
+    if pa.types.is_dictionary(typ):
+        arr, typ = arr.cast(typ.value_type), typ.value_type
+    if kind in NUMERIC_KINDS:
+        if not (pa.types.is_integer(typ) or pa.types.is_floating(typ)):
+            values = arr.to_pylist()
+            _raise_first_non_number(name, values, where)
+        return coerce_column(
+            name, kind, arr.to_numpy(zero_copy_only=False).astype(np.float64), where
+        )
+    if pa.types.is_string(typ) or pa.types.is_large_string(typ):
+        return np.asarray(arr.to_numpy(zero_copy_only=False), dtype=object)
+    return coerce_column(name, kind, arr.to_pylist(), where)
+
+
+def coerce_outcome(name: str, values: Any, where: FieldNamer) -> np.ndarray:
+    """The outcome as a float64 array of 0.0/1.0; anything else is a :class:`DataError`."""
+    if isinstance(values, pa.ChunkedArray | pa.Array):
+        if pa.types.is_boolean(values.type):
+            values = values.cast(pa.int8())
+        arr = coerce_column(name, "numeric", values, where)
+    else:
+        seq = [int(v) if isinstance(v, bool) else v for v in values]
+        arr = coerce_column(name, "numeric", seq, where)
+    bad = np.flatnonzero((arr != 0.0) & (arr != 1.0))
+    if bad.size:
+        i = int(bad[0])
+        raise DataError(
+            f"outcome column {name} must hold 0 or 1, got {arr[i]:g}",
+            field=where(i),
+            value=float(arr[i]),
+            remedy=f"code {name} as 1 for the event and 0 for no event",
+        )
+    return arr
+
+
+def columns_from_rows(
+    rows: Sequence[Mapping[str, Any]], names: Sequence[str], prefix: str
+) -> dict[str, list[Any]]:
+    """Row dicts to lists per needed column; a row lacking a name is a missing feature."""
+    out: dict[str, list[Any]] = {}
+    for name in names:
+        col = [row.get(name, _MISSING) for row in rows]
+        for i, v in enumerate(col):
+            if v is _MISSING:
+                raise MissingFeatureError(
+                    f"{prefix}[{i}] has no value for {name}",
+                    field=f"{prefix}[{i}].{name}",
+                    value=None,
+                    remedy=f"give every record a value for {name}",
+                )
+        out[name] = col
+    return out
+
+
+def read_table(content: bytes, *, filename: str | None, content_type: str | None) -> pa.Table:
+    """A CSV or Parquet upload as a pyarrow table (Parquet recognised by its ``PAR1`` magic)."""
+    if not content:
+        raise DataError(
+            "the uploaded file is empty",
+            field="data",
+            value=filename or "",
+            remedy="upload a CSV file with a header row, or a Parquet file",
+        )
+    is_parquet = content[:4] == b"PAR1" or (filename or "").lower().endswith(".parquet")
+    try:
+        if is_parquet:
+            return pq.read_table(io.BytesIO(content))
+        return pa_csv.read_csv(io.BytesIO(content))
+    except (pa.ArrowInvalid, pa.ArrowTypeError, OSError, ValueError) as exc:
+        kind = "Parquet" if is_parquet else "CSV"
+        first_line = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else ""
+        raise DataError(
+            f"the uploaded file could not be read as {kind}: {first_line}",
+            field="data",
+            value=filename or content_type or "",
+            remedy="upload a UTF-8 CSV file with one header row (comma separated), "
+            "or a Parquet file",
+        ) from exc
+
+
+def table_columns(table: pa.Table, names: Sequence[str]) -> dict[str, Any]:
+    """The named columns of ``table``; a missing column is a :class:`MissingFeatureError`."""
+    present = set(table.column_names)
+    for name in names:
+        if name not in present:
+            raise MissingFeatureError(
+                f"the uploaded file has no column {name!r}",
+                field=f"data.columns.{name}",
+                value=name,
+                remedy=f"add a column named {name}; the file has: "
+                + ", ".join(sorted(present))[:300],
+            )
+    return {name: table.column(name) for name in names}
+
+
+def cell_namer(layout: str, name: str) -> FieldNamer:
+    """Field path of cell ``i`` of column ``name`` for the request's data layout."""
+    if layout == "rows":
+        return lambda i: f"data.rows[{i}].{name}"
+    return lambda i: f"data.columns.{name}[{i}]"
+
+
+def training_data(
+    raw: Mapping[str, Any],
+    *,
+    kinds: Mapping[str, str],
+    outcome: str,
+    weights: str | None = None,
+    offset: str | None = None,
+    layout: str = "columns",
+) -> TrainingData:
+    """Validate raw training columns (lists, numpy or pyarrow arrays) into :class:`TrainingData`.
+
+    ``layout`` (``"columns"``, ``"rows"`` or ``"file"``) only shapes the field paths of errors.
+    """
+    needed = [*kinds, outcome, *(c for c in (weights, offset) if c)]
+    for name in needed:
+        if name not in raw:
+            raise MissingFeatureError(
+                f"the data have no column {name!r}",
+                field=f"data.columns.{name}",
+                value=name,
+                remedy=f"add {name} to the data, or remove it from the spec",
+            )
+    lengths = {name: len(raw[name]) for name in needed}
+    n = lengths[outcome]
+    if n == 0:
+        raise DataError(
+            "the data hold no rows",
+            field="data",
+            value=0,
+            remedy="send at least a few hundred rows with both outcomes present",
+        )
+    for name, length in lengths.items():
+        if length != n:
+            raise DataError(
+                f"column {name} has {length} values but {outcome} has {n}",
+                field=f"data.columns.{name}",
+                value=length,
+                remedy="give every column the same number of values",
+            )
+    columns = {
+        name: coerce_column(name, kind, raw[name], cell_namer(layout, name))
+        for name, kind in kinds.items()
+    }
+    y = coerce_outcome(outcome, raw[outcome], cell_namer(layout, outcome))
+    w = (
+        coerce_column(weights, "numeric", raw[weights], cell_namer(layout, weights))
+        if weights
+        else None
+    )
+    if w is not None and (w < 0).any():
+        i = int(np.flatnonzero(w < 0)[0])
+        raise DataError(
+            f"weights column {weights} has a negative value {w[i]:g}",
+            field=cell_namer(layout, str(weights))(i),
+            value=float(w[i]),
+            remedy="case weights must be >= 0",
+        )
+    off = (
+        coerce_column(offset, "numeric", raw[offset], cell_namer(layout, offset))
+        if offset
+        else None
+    )
+    return TrainingData(columns=columns, y=y, weights=w, offset=off, n_obs=n)
