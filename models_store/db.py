@@ -52,6 +52,7 @@ __all__ = [
     "make_engine",
     "make_session_factory",
     "ping",
+    "reader",
     "session_scope",
     "upgrade",
 ]
@@ -147,6 +148,12 @@ def _translate_operational_error(context: ExceptionContext) -> None:
     ) from error
 
 
+def reader(engine: Engine) -> Engine:
+    """A view of ``engine`` (same pool) whose transactions start ``BEGIN DEFERRED`` on SQLite:
+    for read-only work that should not hold the write lock. No effect on other backends."""
+    return engine.execution_options(**{_BEGIN_OPTION: "DEFERRED"})
+
+
 def make_session_factory(engine: Engine) -> sessionmaker[Session]:
     """Sessions bound to ``engine``; objects stay readable after commit (``expire_on_commit``
     off) so a route can shape its response from what it just stored."""
@@ -223,7 +230,7 @@ def upgrade(url_or_engine: str | URL | Engine, revision: str = "head") -> None:
 
 def ping(engine: Engine) -> None:
     """Readiness: one round trip to the database; raises :class:`StoreError` when unreachable."""
-    with engine.connect().execution_options(**{_BEGIN_OPTION: "DEFERRED"}) as conn:
+    with reader(engine).connect() as conn:
         conn.execute(text("SELECT 1"))
 
 
@@ -234,7 +241,7 @@ def check_integrity(engine: Engine) -> list[str]:
     schema is at the package's head revision.
     """
     problems: list[str] = []
-    with engine.connect().execution_options(**{_BEGIN_OPTION: "DEFERRED"}) as conn:
+    with reader(engine).connect() as conn:
         if conn.dialect.name == "sqlite":
             rows = conn.exec_driver_sql("PRAGMA integrity_check").scalars().all()
             problems += [f"integrity_check: {r}" for r in rows if r != "ok"]

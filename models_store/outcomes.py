@@ -112,6 +112,7 @@ def add_outcomes(
             for sid, item in resolved
             if item.index in accepted
         ]
+        rows.sort(key=lambda r: r["score_id"])  # one lock order for every writer: no deadlocks
         try:
             with session.begin_nested():
                 for part in chunks(rows):

@@ -71,9 +71,11 @@ def add_scores(
         }
         for row in rows
     ]
+    # Insert keyed rows in key order so that concurrent writers lock keys in one order.
+    ordered = sorted(values, key=lambda v: (v["key"] is None, v["key"] or ""))
     try:
         with session.begin_nested():
-            for part in chunks(values):
+            for part in chunks(ordered):
                 session.execute(insert(Score), list(part))
     except IntegrityError as error:  # a key taken concurrently (PostgreSQL)
         keys = [str(v["key"]) for v in values if v["key"] is not None]
