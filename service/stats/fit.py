@@ -292,11 +292,16 @@ def fit_logistic(
 
 
 def constrained_fit(
-    blocks: BlockSource, fit: LogisticFit, fixed: dict[int, float], *, tol: float = 1e-10
+    blocks: BlockSource,
+    fit: LogisticFit,
+    fixed: dict[int, float],
+    *,
+    start: np.ndarray | None = None,
+    tol: float = 1e-10,
 ) -> State:
     """Maximise the fit's (penalised) log-likelihood with ``coef[j] = fixed[j]`` held.
 
-    Starts at the fit's estimate; the penalty is the full-model one (Firth: the
+    Starts at ``start`` (default the fit's estimate); the penalty is the full-model one (Firth: the
     whole information matrix), as used by profile intervals and LR tests.
     """
     p = fit.coef.shape[0]
@@ -304,7 +309,7 @@ def constrained_fit(
     if fit.intercept_index is not None:
         mask[fit.intercept_index] = 0.0
     obj = Objective(blocks, fit.method, fit.ridge_lambda, mask)
-    coef = fit.coef.copy()
+    coef = (fit.coef if start is None else start).astype(np.float64, copy=True)
     free = np.ones(p, bool)
     for j, v in fixed.items():
         coef[j] = v
