@@ -128,7 +128,7 @@ WINTER_AGE_SLOPE = 0.033
 TRUE_MODEL = TrueModel(
     year=1,
     coef=MappingProxyType(dict(_YEAR_ONE)),
-    description="year one: an ordinary winter",
+    description="an ordinary winter",
 )
 TRUE_MODEL_YEAR2 = TrueModel(
     year=2,
@@ -140,8 +140,8 @@ TRUE_MODEL_YEAR2 = TrueModel(
         }
     ),
     description=(
-        f"year two: a harsher winter (log-odds +{WINTER_INTERCEPT_SHIFT} for every segment, "
-        f"age effect {_YEAR_ONE['age_years']} -> {WINTER_AGE_SLOPE} per year)"
+        f"a harsher winter: log-odds +{WINTER_INTERCEPT_SHIFT} for every segment and an age "
+        f"effect of {WINTER_AGE_SLOPE} instead of {_YEAR_ONE['age_years']} per year"
     ),
 )
 

@@ -5,19 +5,15 @@ from __future__ import annotations
 
 import json
 import shlex
-import socket
 import subprocess
 import sys
-import threading
-import time
 from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-import uvicorn
 
-from service.app import create_app
 from service.config import Settings
+from tests.demo._live import free_port, live_server
 from tests.deploy._commands import REPO, check_riskfit_argv
 
 Instruction = tuple[str, str]  # (KEYWORD, arguments)
@@ -108,29 +104,10 @@ def _healthcheck_argv() -> list[str]:
     return argv
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        port: int = s.getsockname()[1]
-        return port
-
-
 @pytest.fixture
 def live_port(tmp_path: Path) -> Iterator[int]:
-    """The real app under uvicorn on 127.0.0.1 in a thread (fresh SQLite file)."""
-    port = _free_port()
-    app = create_app(Settings(database_url=f"sqlite:///{tmp_path / 'riskfit.db'}"))
-    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="error"))
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 30
-    while not server.started:
-        if time.monotonic() > deadline or not thread.is_alive():
-            pytest.fail("uvicorn did not start within 30 s")
-        time.sleep(0.05)
-    yield port
-    server.should_exit = True
-    thread.join(timeout=10)
+    with live_server(tmp_path / "riskfit.db") as url:
+        yield int(url.rsplit(":", 1)[1])
 
 
 def test_healthcheck_passes_against_the_running_app_and_fails_without_it(live_port: int) -> None:
@@ -140,7 +117,7 @@ def test_healthcheck_passes_against_the_running_app_and_fails_without_it(live_po
     assert code != argv[2], "the check targets port 8000, the port the CMD serves on"
     ok = subprocess.run([sys.executable, "-c", code], capture_output=True, timeout=30, check=False)
     assert ok.returncode == 0, ok.stderr
-    dead = argv[2].replace(":8000/", f":{_free_port()}/")
+    dead = argv[2].replace(":8000/", f":{free_port()}/")
     down = subprocess.run(
         [sys.executable, "-c", dead], capture_output=True, timeout=30, check=False
     )
