@@ -110,7 +110,7 @@ def _float_or_inf(value: Any) -> float:
         return math.inf
 
 
-def _raise_first_non_number(name: str, seq: Sequence[Any], where: FieldNamer) -> None:
+def _raise_first_non_number(name: str, seq: Sequence[Any] | np.ndarray, where: FieldNamer) -> None:
     for i, v in enumerate(seq):
         if v is None:
             raise DataError(

@@ -28,7 +28,7 @@ from models_store.champions import current_champion
 from models_store.orm import RiskModel
 from models_store.scores import add_scores, new_score_id
 from models_store.versions import require_version
-from service.data_io import coerce_column, columns_from_rows
+from service.data_io import FieldNamer, coerce_column, columns_from_rows
 from service.errors import DataError, VersionNotFoundError
 from service.stats.design import Encoding, design_matrix
 from service.stats.predict import contributions, predict
@@ -100,20 +100,22 @@ def resolve_version(session: Session, model: RiskModel, version: int | None) -> 
     return champion
 
 
+def _record_field(name: str) -> FieldNamer:
+    return lambda i: f"records[{i}].{name}"
+
+
 def _record_columns(
     records: Sequence[Mapping[str, Any]], v: LoadedVersion
 ) -> tuple[dict[str, np.ndarray], np.ndarray | None]:
     names = list(v.kinds) + ([v.offset] if v.offset else [])
     raw = columns_from_rows(records, names, "records")
     cols = {
-        name: coerce_column(name, kind, raw[name], lambda i, n=name: f"records[{i}].{n}")
+        name: coerce_column(name, kind, raw[name], _record_field(name))
         for name, kind in v.kinds.items()
     }
     offset = None
     if v.offset:
-        offset = coerce_column(
-            v.offset, "numeric", raw[v.offset], lambda i: f"records[{i}].{v.offset}"
-        )
+        offset = coerce_column(v.offset, "numeric", raw[v.offset], _record_field(v.offset))
     return cols, offset
 
 

@@ -137,7 +137,7 @@ async def _validation_error(request: Request, exc: Exception) -> JSONBytes:
     assert isinstance(exc, RequestValidationError)
     errors = list(exc.errors())
     first = errors[0] if errors else {"loc": ("body",), "msg": "invalid request", "input": None}
-    field = location_to_field(first.get("loc", ("body",)))
+    field = location_to_field(tuple(first.get("loc") or ("body",)))
     value = first.get("input")
     if isinstance(value, dict | list):
         value = None if first.get("type") == "missing" else _short(value, 120)

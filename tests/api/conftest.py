@@ -23,6 +23,7 @@ from sqlalchemy import select
 from models_store.orm import Base
 from service.app import create_app
 from service.config import Settings
+from tests.store.dbfixtures import fresh_postgres_url, sqlite_url
 
 
 class ApiClient:
@@ -77,20 +78,14 @@ def row_count(api: ApiClient, table: str) -> int:
     return len(store_dump(api)[table])
 
 
-def _sqlite_url(tmp_path: Path) -> str:
-    return f"sqlite:///{tmp_path / 'riskfit-test.db'}"
-
-
 @pytest.fixture(params=["sqlite", pytest.param("postgres", marks=pytest.mark.postgres)])
 def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[str]:
     """A fresh, empty database per test: an SQLite file, or a fresh PostgreSQL database."""
     if request.param == "sqlite":
-        yield _sqlite_url(tmp_path)
+        yield sqlite_url(tmp_path)
         return
     server_url: str = request.getfixturevalue("postgres_url")
-    from tests.store.dbfixtures import fresh_postgres_database
-
-    with fresh_postgres_database(server_url) as url:
+    with fresh_postgres_url(server_url) as url:
         yield url
 
 
