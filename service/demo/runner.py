@@ -114,7 +114,12 @@ def run_demo(
     if client is None:
         with httpx.Client(base_url=url or "http://127.0.0.1:8000", timeout=300.0) as own:
             return run_demo(own, seed=seed, n_train=n_train, model=model, log=log)
-    spec = client.get("/openapi.json")
+    try:
+        spec = client.get("/openapi.json")
+    except httpx.TransportError as exc:
+        raise DemoError(
+            f"no riskfit answers at {client.base_url} ({exc}); start one with `riskfit serve`"
+        ) from exc
     if spec.status_code != 200:
         raise DemoError(f"no riskfit at {client.base_url}: /openapi.json -> {spec.status_code}")
     paths = {(m, _shape(p)) for p, ops in spec.json()["paths"].items() for m in ops}

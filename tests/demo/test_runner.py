@@ -15,7 +15,7 @@ from service.app import create_app
 from service.config import Settings
 from service.demo import DemoError, generate_segments, run_demo, seed_database
 from service.demo.inprocess import in_process_client
-from tests.demo._live import live_server
+from tests.demo._live import free_port, live_server
 from tests.demo.test_scenario import _design
 
 SEED, N = 5, 2_000
@@ -92,6 +92,12 @@ def test_a_refusal_raises_with_the_service_answer() -> None:
     stub = httpx.Client(transport=httpx.MockTransport(answer), base_url="http://t")
     with stub, pytest.raises(DemoError, match=r"answered 422.*invalid_spec"):
         run_demo(stub, seed=SEED, n_train=300, log=lambda _: None)
+
+
+def test_no_server_is_a_demo_error_naming_the_url() -> None:
+    url = f"http://127.0.0.1:{free_port()}"
+    with pytest.raises(DemoError, match=r"no riskfit answers at http://127\.0\.0\.1:\d+"):
+        run_demo(url=url, n_train=300, log=lambda _: None)
 
 
 def test_seed_database_then_the_url_path_against_a_live_server(tmp_path: Path) -> None:
