@@ -35,7 +35,7 @@ class _LoopTransport(httpx.BaseTransport):
 
 
 @contextmanager
-def in_process_client(app: Any, base_url: str = "http://riskfit.local") -> Iterator[httpx.Client]:
+def in_process_client(app: Any, base_url: str = "http://in-process") -> Iterator[httpx.Client]:
     """Enter ``app``'s lifespan (migrations, engine), yield a client, leave the lifespan."""
     loop = asyncio.new_event_loop()
     lifespan = app.router.lifespan_context(app)
