@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from service.errors import DataError
+from service.errors import DataError, NotEnoughOutcomesError
 
 FloatArray = NDArray[np.float64]
 
@@ -100,3 +100,28 @@ def clipped_logit(p: FloatArray) -> FloatArray:
 def weighted_sum(values: FloatArray, weights: FloatArray | None) -> float:
     """sum(w * values), with w = 1 when ``weights`` is None."""
     return float(values.sum() if weights is None else weights @ values)
+
+
+def require_outcomes(
+    n: int, events: float, sum_weights: float, *, min_outcomes: int, min_events: int, what: str
+) -> None:
+    """Raise NotEnoughOutcomesError unless n >= min_outcomes and both classes >= min_events.
+
+    ``details`` = {"n", "events", "non_events", "required": {"n", "events", "non_events"}}.
+    """
+    non_events = sum_weights - events
+    if n >= min_outcomes and events >= min_events and non_events >= min_events:
+        return
+    raise NotEnoughOutcomesError(
+        f"not enough outcomes for {what}: {n} outcomes, {events:g} events, "
+        f"{non_events:g} non-events",
+        field="window",
+        value=n,
+        remedy="widen the window or wait for more outcomes",
+        details={
+            "n": n,
+            "events": events,
+            "non_events": non_events,
+            "required": {"n": min_outcomes, "events": min_events, "non_events": min_events},
+        },
+    )

@@ -31,7 +31,6 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import stats
 
-from service.errors import NotEnoughOutcomesError
 from service.stats._outcome_arrays import (
     PROB_FLOOR,
     FloatArray,
@@ -39,6 +38,7 @@ from service.stats._outcome_arrays import (
     as_probabilities,
     as_weights,
     clipped_logit,
+    require_outcomes,
     weighted_sum,
 )
 from service.stats._risk_groups import (
@@ -440,20 +440,9 @@ def calibration_report(
     sw = float(n) if w is None else float(w.sum())
     events = weighted_sum(yy, w)
     non_events = sw - events
-    if n < min_outcomes or events < min_events or non_events < min_events:
-        raise NotEnoughOutcomesError(
-            f"not enough outcomes for a calibration report: {n} outcomes, {events:g} events, "
-            f"{non_events:g} non-events",
-            field="window",
-            value=n,
-            remedy="widen the window or wait for more outcomes",
-            details={
-                "n": n,
-                "events": events,
-                "non_events": non_events,
-                "required": {"n": min_outcomes, "events": min_events, "non_events": min_events},
-            },
-        )
+    require_outcomes(
+        n, events, sw, min_outcomes=min_outcomes, min_events=min_events, what="a calibration report"
+    )
     slope, recal = calibration_slope(yy, pp, weights=w, confidence_level=confidence_level)
     ps, ys, ws = _sorted(yy, pp, w)
     return CalibrationReport(
