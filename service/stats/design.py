@@ -240,7 +240,7 @@ def _feature_columns(
             if u not in index:
                 row = int(np.flatnonzero(values == u)[0])
                 raise UnseenLevelError(
-                    f"feature {f.name!r} has level {u!r} (row {row}), unseen when the model was fitted",
+                    f"feature {f.name!r} has level {u!r} (row {row}), unseen at fit time",
                     field=f"{prefix}.{f.name}[{row}]",
                     value=u,
                     remedy=f"use one of {list(f.levels)}",

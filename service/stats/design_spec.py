@@ -10,6 +10,7 @@ Errors are :class:`SpecError` with ``field="spec.features[i].<key>"``.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from itertools import pairwise
 from typing import Any
 
 from service.errors import SpecError
@@ -40,8 +41,9 @@ def _check_knots(i: int, knots: Any) -> tuple[float, ...]:
         try:
             q = tuple(float(v) for v in knots)
         except (TypeError, ValueError):
-            raise _fail(i, "knots", knots, "knot quantiles must be numbers", "e.g. [0.1, 0.5, 0.9]")
-        ok = len(q) >= 3 and all(0 < v < 1 for v in q) and all(a < b for a, b in zip(q, q[1:]))
+            msg = "knot quantiles must be numbers"
+            raise _fail(i, "knots", knots, msg, "e.g. [0.1, 0.5, 0.9]") from None
+        ok = len(q) >= 3 and all(0 < v < 1 for v in q) and all(a < b for a, b in pairwise(q))
         if not ok:
             raise _fail(
                 i,

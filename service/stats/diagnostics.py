@@ -61,7 +61,8 @@ def check_counts(summary: DataSummary, p: int) -> None:
         )
     if summary.n_positive <= p:
         raise TooFewObservationsError(
-            f"{summary.n_positive} rows with positive weight for {p} terms; need more rows than terms",
+            f"{summary.n_positive} rows with positive weight for {p} terms; "
+            "need more rows than terms",
             field="X",
             value=f"{summary.n_positive} rows, {p} terms",
             remedy="add rows or remove terms (fewer features, levels or spline knots)",
@@ -72,14 +73,15 @@ def check_counts(summary: DataSummary, p: int) -> None:
 def collinear_terms(xtwx: np.ndarray, term_names: Sequence[str]) -> list[list[str]]:
     """Groups of terms in exact (or numerically exact) linear dependence; [] if full rank."""
     d = np.sqrt(np.clip(np.diag(xtwx), 0.0, None))
-    groups: list[list[str]] = [[term_names[j]] for j in np.flatnonzero(d == 0)]
+    groups: list[list[str]] = [[term_names[int(j)]] for j in np.flatnonzero(d == 0)]
     live = np.flatnonzero(d > 0)
     if live.size:
         S = xtwx[np.ix_(live, live)] / np.outer(d[live], d[live])
         vals, vecs = np.linalg.eigh(S)
         for k in np.flatnonzero(vals < RANK_TOL * max(float(vals[-1]), 1.0)):
             v = np.abs(vecs[:, k])
-            groups.append([term_names[live[j]] for j in np.flatnonzero(v > 1e-3 * v.max())])
+            big = np.flatnonzero(v > 1e-3 * v.max())
+            groups.append([term_names[int(live[j])] for j in big])
     return groups
 
 
@@ -154,7 +156,8 @@ def check_separation(
         X, s = _collect(blocks)
         d = separating_direction(X, s)
         if d is not None:
-            nz = [j for j in np.flatnonzero(d) if j != intercept_index] or list(np.flatnonzero(d))
+            nonzero = [int(j) for j in np.flatnonzero(d)]
+            nz = [j for j in nonzero if j != intercept_index] or nonzero
             _raise_separation([term_names[j] for j in nz], "linear programme")
         return
     mean = summary.xtw / summary.sum_weights

@@ -100,4 +100,5 @@ def predict(
 def contributions(X: np.ndarray, coef: np.ndarray) -> np.ndarray:
     """Per-term contributions to eta, ``X * coef`` (n, p); rows sum to eta minus offset."""
     coef = np.asarray(coef, dtype=np.float64)
-    return _matrix(X, coef.shape[0]) * coef
+    out: np.ndarray = _matrix(X, coef.shape[0]) * coef
+    return out
