@@ -17,7 +17,6 @@ from models_store.db import (
     make_engine,
     make_session_factory,
     ping,
-    reader,
     session_scope,
     upgrade,
 )
@@ -129,7 +128,6 @@ __all__ = [
     "make_session_factory",
     "new_score_id",
     "ping",
-    "reader",
     "record",
     "refit_lock",
     "refresh_refit_lock",

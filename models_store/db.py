@@ -1,28 +1,40 @@
 """Engines, sessions, migrations and health checks.
 
-Durability and concurrency on SQLite
-------------------------------------
+Durability on SQLite
+--------------------
 Every connection gets ``foreign_keys=ON``, ``journal_mode=WAL``, ``busy_timeout`` and
 ``synchronous`` (default ``FULL``). In WAL mode a committed transaction is in the WAL file before
 COMMIT returns, so it survives kill -9 of the process even with ``NORMAL``; ``NORMAL`` may lose the
 last commits on an OS crash or power cut, ``FULL`` fsyncs the WAL at every commit and does not.
-riskfit promises that nothing it acknowledged is lost, and it commits once per request, so the
-default is ``FULL`` (one fsync per request); pass ``sqlite_synchronous="NORMAL"`` to trade
-power-loss safety for throughput.
+riskfit promises that nothing it acknowledged is lost and commits once per request, so the
+default is ``FULL`` (one fsync per request); ``sqlite_synchronous="NORMAL"`` trades power-loss
+safety for throughput and still survives a killed process.
 
-The driver's own transaction handling is switched off and every transaction starts with
-``BEGIN IMMEDIATE`` (SQLAlchemy's documented pysqlite recipe). Writers therefore queue on the busy
-timeout at BEGIN instead of failing later with "database is locked" when a read transaction tries
-to upgrade to a write (which the busy handler cannot resolve in WAL mode); SAVEPOINTs and
-transactional DDL work correctly. Read-only work may start with ``BEGIN DEFERRED`` through
-``session_scope(..., read_only=True)`` so that long reports do not hold the write lock. WAL readers
-never block writers or each other.
+Transactions on SQLite
+----------------------
+The driver's own transaction handling is switched off (SQLAlchemy's documented pysqlite recipe,
+so SAVEPOINTs and transactional DDL work) and riskfit drives transactions itself:
+
+* every transaction starts ``BEGIN DEFERRED``: reads take no write lock, so GET requests and the
+  reading phase of a fit never block writers (WAL readers never block anyone);
+* just before the transaction's first write statement (INSERT/UPDATE/DELETE/DDL/SAVEPOINT) the
+  still read-only transaction is ended and ``BEGIN IMMEDIATE`` taken on the same connection
+  (:func:`_take_write_lock`). Writers thus queue on the busy timeout *there* instead of failing
+  with "database is locked" when a read snapshot tries to become a write (a case the busy
+  handler cannot resolve in WAL mode).
+
+Reads made before the first write see committed data as of their own statement (like
+PostgreSQL's READ COMMITTED); everything from the first write on is serialised. The repository
+functions are written for that: numbers and keys are guarded by unique constraints and
+re-checked on conflict, exactly as on PostgreSQL. An engine made with
+``engine.execution_options(riskfit_sqlite_begin="IMMEDIATE")`` serialises whole transactions.
 
 Errors
 ------
-:func:`_translate_operational_error` (an engine ``handle_error`` hook) is the one place where a
-SQLAlchemy ``OperationalError``/``InterfaceError`` (unreachable server, locked database, missing
-tables) becomes :class:`service.errors.StoreError`, chained with ``from``.
+:func:`_store_unavailable` is the one place where a database failure that is not the client's
+fault (unreachable server, locked database, missing tables) becomes
+:class:`service.errors.StoreError`; the engine's ``handle_error`` hook sends every SQLAlchemy
+``OperationalError``/``InterfaceError`` through it, chained with ``from``.
 """
 
 from __future__ import annotations
@@ -52,7 +64,6 @@ __all__ = [
     "make_engine",
     "make_session_factory",
     "ping",
-    "reader",
     "session_scope",
     "upgrade",
 ]
@@ -60,6 +71,8 @@ __all__ = [
 MIGRATIONS_DIR = Path(__file__).resolve().parent / "migrations"
 SqliteSync = Literal["NORMAL", "FULL"]
 _BEGIN_OPTION = "riskfit_sqlite_begin"
+_WRITING = "riskfit_sqlite_writing"  # DBAPI connection info: this transaction holds the lock
+_WRITE_PREFIXES = ("INSERT", "UPDATE", "DELETE", "REPLACE", "CREATE", "DROP", "ALTER", "SAVEPOINT")
 _MIGRATION_LOCK_KEY = 0x7269736B  # arbitrary constant for pg_advisory_xact_lock during upgrades
 
 
@@ -82,7 +95,7 @@ def make_engine(
 ) -> Engine:
     """Create the engine for ``url`` with riskfit's connection settings (see module docstring).
 
-    SQLite: pragmas and ``BEGIN IMMEDIATE`` on every connection, ``check_same_thread=False``
+    SQLite: pragmas and transaction hooks on every connection, ``check_same_thread=False``
     (connections move between the web server's worker threads through the pool).
     PostgreSQL (``postgresql+psycopg://``): ``pool_pre_ping`` so that a restarted server does not
     fail the first request after it.
@@ -93,10 +106,7 @@ def make_engine(
     kwargs: dict[str, Any] = {"echo": echo, "json_serializer": dumps_json}
     is_sqlite = parsed.get_backend_name() == "sqlite"
     if is_sqlite:
-        kwargs["connect_args"] = {
-            "check_same_thread": False,
-            "timeout": busy_timeout_ms / 1000.0,
-        }
+        kwargs["connect_args"] = {"check_same_thread": False, "timeout": busy_timeout_ms / 1000.0}
         if parsed.database not in (None, "", ":memory:"):
             kwargs.update(pool_size=pool_size, max_overflow=max_overflow)
     else:
@@ -123,35 +133,52 @@ def _install_sqlite_hooks(engine: Engine, busy_timeout_ms: int, synchronous: Sql
 
     @event.listens_for(engine, "begin")
     def _begin(conn: Connection) -> None:
-        mode = conn.get_execution_options().get(_BEGIN_OPTION, "IMMEDIATE")
+        mode = conn.get_execution_options().get(_BEGIN_OPTION, "DEFERRED")
+        conn.info[_WRITING] = mode == "IMMEDIATE"
         conn.exec_driver_sql(f"BEGIN {mode}")
+
+    @event.listens_for(engine, "before_cursor_execute")
+    def _before_execute(conn: Connection, cursor: Any, statement: str, *_: Any) -> None:
+        if conn.info.get(_WRITING, True) or not conn.in_transaction():
+            return
+        if statement.lstrip()[:9].upper().startswith(_WRITE_PREFIXES):
+            _take_write_lock(cursor)
+            conn.info[_WRITING] = True
+
+
+def _take_write_lock(cursor: Any) -> None:
+    """End the read-only transaction and begin an IMMEDIATE one (waits up to busy_timeout)."""
+    cursor.execute("COMMIT")  # nothing was written: this only releases the read snapshot
+    try:
+        cursor.execute("BEGIN IMMEDIATE")
+    except Exception as error:  # sqlite3.OperationalError, raised outside SQLAlchemy's wrapper
+        cursor.execute("BEGIN DEFERRED")  # keep SQLAlchemy's view (a transaction is open) true
+        raise _store_unavailable(str(error), "sqlite") from error
+
+
+def _store_unavailable(message: str, backend: str | None) -> StoreError:
+    """The one translation of infrastructure failures into :class:`StoreError`."""
+    first_line = (message.strip().splitlines() or [""])[0][:300]
+    if "no such table" in first_line:
+        remedy = "the schema is missing: run `riskfit db upgrade` (or restart the service)"
+    elif "locked" in first_line or "busy" in first_line:
+        remedy = "the database stayed busy past the busy timeout; retry the request"
+    else:
+        remedy = "check that the database named by RISKFIT_DATABASE_URL is reachable, then retry"
+    return StoreError(
+        f"the store is unavailable: {first_line}", remedy=remedy, details={"backend": backend}
+    )
 
 
 def _translate_operational_error(context: ExceptionContext) -> None:
-    """Turn infrastructure failures into :class:`StoreError` (the one translation point)."""
+    """Engine ``handle_error`` hook: infrastructure failures become :class:`StoreError`."""
     if context.is_pre_ping:
         return  # the pool handles it by reconnecting
     error = context.sqlalchemy_exception
     if not isinstance(error, exc.OperationalError | exc.InterfaceError):
         return
-    original = str(context.original_exception).strip().splitlines()[0][:300]
-    if "no such table" in original:
-        remedy = "the schema is missing: run `riskfit db upgrade` (or restart the service)"
-    elif "locked" in original or "busy" in original:
-        remedy = "the database stayed busy past the busy timeout; retry the request"
-    else:
-        remedy = "check that the database named by RISKFIT_DATABASE_URL is reachable, then retry"
-    raise StoreError(
-        f"the store is unavailable: {original}",
-        remedy=remedy,
-        details={"backend": context.dialect.name if context.dialect else None},
-    ) from error
-
-
-def reader(engine: Engine) -> Engine:
-    """A view of ``engine`` (same pool) whose transactions start ``BEGIN DEFERRED`` on SQLite:
-    for read-only work that should not hold the write lock. No effect on other backends."""
-    return engine.execution_options(**{_BEGIN_OPTION: "DEFERRED"})
+    backend = context.dialect.name if context.dialect else None
+    raise _store_unavailable(str(context.original_exception), backend) from error
 
 
 def make_session_factory(engine: Engine) -> sessionmaker[Session]:
@@ -164,13 +191,11 @@ def make_session_factory(engine: Engine) -> sessionmaker[Session]:
 def session_scope(factory: sessionmaker[Session], *, read_only: bool = False) -> Iterator[Session]:
     """One unit of work: commit once at the end, roll back on any exception, always close.
 
-    ``read_only=True`` starts SQLite transactions DEFERRED (no write lock) and rolls back at
-    the end instead of committing.
+    ``read_only=True`` rolls back at the end instead of committing (a report cannot write by
+    accident). Reads never hold SQLite's write lock either way (see the module docstring).
     """
     session = factory()
     try:
-        if read_only:
-            session.connection(execution_options={_BEGIN_OPTION: "DEFERRED"})
         yield session
         if read_only:
             session.rollback()
@@ -214,7 +239,8 @@ def upgrade(url_or_engine: str | URL | Engine, revision: str = "head") -> None:
     owned = not isinstance(url_or_engine, Engine)
     engine = make_engine(url_or_engine) if not isinstance(url_or_engine, Engine) else url_or_engine
     try:
-        with engine.begin() as conn:
+        serial = engine.execution_options(**{_BEGIN_OPTION: "IMMEDIATE"})
+        with serial.begin() as conn:
             if conn.dialect.name == "postgresql":
                 conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": _MIGRATION_LOCK_KEY})
             config = alembic_config()
@@ -230,7 +256,7 @@ def upgrade(url_or_engine: str | URL | Engine, revision: str = "head") -> None:
 
 def ping(engine: Engine) -> None:
     """Readiness: one round trip to the database; raises :class:`StoreError` when unreachable."""
-    with reader(engine).connect() as conn:
+    with engine.connect() as conn:
         conn.execute(text("SELECT 1"))
 
 
@@ -241,7 +267,7 @@ def check_integrity(engine: Engine) -> list[str]:
     schema is at the package's head revision.
     """
     problems: list[str] = []
-    with reader(engine).connect() as conn:
+    with engine.connect() as conn:
         if conn.dialect.name == "sqlite":
             rows = conn.exec_driver_sql("PRAGMA integrity_check").scalars().all()
             problems += [f"integrity_check: {r}" for r in rows if r != "ok"]

@@ -52,7 +52,7 @@ def add_scores(
     Each row: ``inputs`` (dict), ``eta``, ``se_eta``, ``probability``, optional ``key`` and
     ``id``. Keys must be new for the model and distinct within ``rows``: otherwise
     :class:`DuplicateKeyError` lists them (``details["keys"]``, ``details["indices"]``) before
-    anything is written. One multi-row INSERT per chunk (no ORM objects are built).
+    anything is written. One Core executemany INSERT per chunk (no ORM objects or bookkeeping).
     """
     require_version(session=session, model=model, number=version_number)
     _refuse_duplicate_keys(session, model, rows)
@@ -75,11 +75,12 @@ def add_scores(
     ordered = sorted(values, key=lambda v: (v["key"] is None, v["key"] or ""))
     try:
         with session.begin_nested():
+            conn = session.connection()  # Core executemany: no ORM bookkeeping per row
             for part in chunks(ordered):
-                session.execute(insert(Score), list(part))
+                conn.execute(insert(Score.__table__), list(part))
     except IntegrityError as error:  # a key taken concurrently (PostgreSQL)
         keys = [str(v["key"]) for v in values if v["key"] is not None]
-        taken = find_scores_by_keys(session=session, model=model, keys=keys)
+        taken = _existing_keys(session, model, keys)
         if not taken:
             raise
         raise _duplicate([k for k in keys if k in taken], rows) from error
@@ -94,10 +95,18 @@ def _refuse_duplicate_keys(
         return
     seen: set[str] = set()
     repeated = [k for k in keys if k in seen or seen.add(k)]  # type: ignore[func-returns-value]
-    existing = find_scores_by_keys(session=session, model=model, keys=keys)
-    bad = sorted(set(repeated) | set(existing))
+    existing = _existing_keys(session, model, keys)
+    bad = sorted(set(repeated) | existing)
     if bad:
         raise _duplicate(bad, rows)
+
+
+def _existing_keys(session: Session, model: RiskModel, keys: Sequence[str]) -> set[str]:
+    found: set[str] = set()
+    for part in chunks(sorted(set(keys))):
+        stmt = select(Score.key).where(Score.model_id == model.id, Score.key.in_(part))
+        found.update(k for k in session.scalars(stmt) if k is not None)
+    return found
 
 
 def _duplicate(keys: Sequence[str], rows: Sequence[Mapping[str, Any]]) -> DuplicateKeyError:

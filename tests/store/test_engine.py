@@ -7,19 +7,22 @@ from datetime import UTC, datetime, timedelta, timezone
 from pathlib import Path
 
 import pytest
-from sqlalchemy import exc, text
+from sqlalchemy import exc
 from sqlalchemy.engine import Engine
 from sqlalchemy.orm import Session
 
 from models_store import (
     RiskModel,
     add_alert,
+    create_model,
+    get_model,
     list_alerts,
+    list_models,
     make_engine,
     make_session_factory,
     ping,
-    reader,
     session_scope,
+    upgrade,
 )
 from service.errors import StoreError
 from tests.store.dbfixtures import sqlite_url
@@ -28,7 +31,7 @@ from tests.store.dbfixtures import sqlite_url
 def test_sqlite_pragmas_on_every_pooled_connection(tmp_path: Path) -> None:
     engine = make_engine(sqlite_url(tmp_path), busy_timeout_ms=1234)
     try:
-        conns = [reader(engine).connect() for _ in range(3)]  # three distinct DBAPI connections
+        conns = [engine.connect() for _ in range(3)]  # three distinct DBAPI connections
         for conn in conns:
             assert conn.exec_driver_sql("PRAGMA foreign_keys").scalar() == 1
             assert conn.exec_driver_sql("PRAGMA journal_mode").scalar() == "wal"
@@ -40,25 +43,49 @@ def test_sqlite_pragmas_on_every_pooled_connection(tmp_path: Path) -> None:
         engine.dispose()
     normal = make_engine(sqlite_url(tmp_path, "normal.db"), sqlite_synchronous="NORMAL")
     try:
-        with reader(normal).connect() as conn:
+        with normal.connect() as conn:
             assert conn.exec_driver_sql("PRAGMA synchronous").scalar() == 1
     finally:
         normal.dispose()
 
 
-def test_sqlite_transactions_take_the_write_lock_at_begin(tmp_path: Path) -> None:
-    """A second writer waits at BEGIN and then fails after the busy timeout (StoreError)."""
-    engine = make_engine(sqlite_url(tmp_path), busy_timeout_ms=100)
+def test_sqlite_write_lock_is_taken_at_the_first_write(tmp_path: Path) -> None:
+    """Readers never wait; a second writer waits at its first write, then fails after the busy
+    timeout with StoreError chained to the driver's error."""
+    url = sqlite_url(tmp_path)
+    upgrade(url)
+    engine = make_engine(url, busy_timeout_ms=100)
     try:
         factory = make_session_factory(engine)
         with session_scope(factory) as first:
-            first.execute(text("SELECT 1"))  # BEGIN IMMEDIATE already holds the write lock
-            with pytest.raises(StoreError, match="locked") as info:
-                with session_scope(factory) as second:
-                    second.execute(text("SELECT 1"))
+            create_model(session=first, name="a")  # holds the write lock until commit
+            with session_scope(factory, read_only=True) as reader:
+                assert get_model(session=reader, name="b") is None
+            with pytest.raises(StoreError, match="locked") as info, session_scope(factory) as s:
+                assert get_model(session=s, name="a") is None  # reading is fine
+                create_model(session=s, name="b")
             assert type(info.value.__cause__).__name__ == "OperationalError"  # driver's error
-            with session_scope(factory, read_only=True) as reader:  # readers are not blocked
-                assert reader.execute(text("SELECT 1")).scalar() == 1
+        with session_scope(factory, read_only=True) as s:
+            assert [m.name for m in list_models(session=s)] == ["a"]
+    finally:
+        engine.dispose()
+
+
+def test_sqlite_read_then_write_survives_a_concurrent_commit(tmp_path: Path) -> None:
+    """A transaction that read before another writer committed can still write: the read
+    snapshot is released and the write lock taken first (no SQLITE_BUSY_SNAPSHOT)."""
+    url = sqlite_url(tmp_path)
+    upgrade(url)
+    engine = make_engine(url, busy_timeout_ms=100)
+    try:
+        factory = make_session_factory(engine)
+        with session_scope(factory) as slow:
+            assert list_models(session=slow) == []  # read snapshot taken
+            with session_scope(factory) as quick:
+                create_model(session=quick, name="quick")
+            create_model(session=slow, name="slow")  # would fail without the lock hand-over
+        with session_scope(factory, read_only=True) as s:
+            assert [m.name for m in list_models(session=s)] == ["quick", "slow"]
     finally:
         engine.dispose()
 
@@ -91,8 +118,13 @@ def test_timestamps_are_stored_utc_and_returned_aware(
     cet = timezone(timedelta(hours=1))
     raised = datetime(2024, 1, 15, 13, 30, 0, 123456, tzinfo=cet)
     add_alert(
-        session=session, model=model, measure="o_e", value=1.4, threshold=1.2,
-        direction="above", raised_at=raised,
+        session=session,
+        model=model,
+        measure="o_e",
+        value=1.4,
+        threshold=1.2,
+        direction="above",
+        raised_at=raised,
     )
     session.commit()
     with make_session_factory(engine)() as fresh:
@@ -105,13 +137,23 @@ def test_timestamps_are_stored_utc_and_returned_aware(
 def test_naive_datetimes_and_nan_json_are_refused(session: Session, model: RiskModel) -> None:
     with pytest.raises(exc.StatementError, match="naive datetime"):
         add_alert(
-            session=session, model=model, measure="o_e", value=1.0, threshold=1.2,
-            direction="above", raised_at=datetime(2024, 1, 1),
+            session=session,
+            model=model,
+            measure="o_e",
+            value=1.0,
+            threshold=1.2,
+            direction="above",
+            raised_at=datetime(2024, 1, 1),
         )
     session.rollback()
     # SQLite: wrapped in StatementError at bind time; psycopg: raised by its JSON adapter.
     with pytest.raises((exc.StatementError, ValueError), match="Out of range float"):
         add_alert(
-            session=session, model=model, measure="o_e", value=1.0, threshold=1.2,
-            direction="above", details={"z": math.nan},
+            session=session,
+            model=model,
+            measure="o_e",
+            value=1.0,
+            threshold=1.2,
+            direction="above",
+            details={"z": math.nan},
         )

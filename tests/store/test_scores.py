@@ -1,0 +1,171 @@
+"""The score log: bulk insert, duplicate keys refused with nothing written, columnar reads."""
+
+from __future__ import annotations
+
+import time
+from datetime import UTC, datetime, timedelta
+
+import numpy as np
+import pytest
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from models_store import (
+    RiskModel,
+    Score,
+    add_outcomes,
+    add_scores,
+    add_version,
+    count_scores,
+    create_model,
+    find_scores_by_keys,
+    get_score,
+    get_scores,
+    score_inputs,
+    scores_with_outcomes,
+)
+from service.errors import DuplicateKeyError, VersionNotFoundError
+from tests.store.dbfixtures import version_fields
+
+T0 = datetime(2025, 3, 1, tzinfo=UTC)
+
+
+def _rows(n: int, seed: int = 0, key_prefix: str | None = None) -> list[dict[str, object]]:
+    rng = np.random.default_rng(seed)
+    eta = rng.normal(-2.5, 1.0, size=n)
+    se = rng.uniform(0.05, 0.4, size=n)
+    return [
+        {
+            "key": None if key_prefix is None else f"{key_prefix}{i}",
+            "inputs": {"age": float(40 + i % 50), "material": "cast iron"},
+            "eta": float(eta[i]),
+            "se_eta": float(se[i]),
+            "probability": float(1.0 / (1.0 + np.exp(-eta[i]))),
+        }
+        for i in range(n)
+    ]
+
+
+def _count(session: Session) -> int:
+    return int(session.scalar(select(func.count()).select_from(Score)) or 0)
+
+
+def test_scores_are_logged_and_found(session: Session, model: RiskModel) -> None:
+    rows = _rows(5, key_prefix="seg-")
+    ids = add_scores(session=session, model=model, version_number=1, rows=rows, created_at=T0)
+    session.commit()
+    assert len(ids) == len(set(ids)) == 5 and all(len(i) == 36 for i in ids)
+    stored = get_score(session=session, model=model, score_id=ids[2])
+    assert stored is not None
+    assert stored.key == "seg-2" and stored.inputs == rows[2]["inputs"]
+    assert stored.eta == rows[2]["eta"] and stored.created_at == T0
+    assert set(get_scores(session=session, model=model, score_ids=[*ids, "nope"])) == set(ids)
+    assert set(find_scores_by_keys(session=session, model=model, keys=["seg-0", "x"])) == {"seg-0"}
+    other = create_model(session=session, name="other")
+    assert get_score(session=session, model=other, score_id=ids[0]) is None
+
+
+def test_duplicate_keys_are_refused_before_anything_is_written(
+    session: Session, model: RiskModel
+) -> None:
+    add_scores(session=session, model=model, version_number=1, rows=_rows(3, key_prefix="k"))
+    session.commit()
+    before = _count(session)
+    again = _rows(4, seed=1, key_prefix="new")
+    again[3]["key"] = "k1"  # already stored
+    with pytest.raises(DuplicateKeyError) as info:
+        add_scores(session=session, model=model, version_number=1, rows=again)
+    assert info.value.details["keys"] == ["k1"]
+    assert info.value.details["indices"] == [3]
+    assert info.value.field == "records[3].key"
+    repeated = _rows(3, seed=2, key_prefix="r")
+    repeated[2]["key"] = "r0"  # twice in one request
+    with pytest.raises(DuplicateKeyError) as twice:
+        add_scores(session=session, model=model, version_number=1, rows=repeated)
+    assert twice.value.details == {"keys": ["r0"], "indices": [0, 2]}
+    session.commit()
+    assert _count(session) == before == 3
+
+
+def test_scores_need_an_existing_version(session: Session, model: RiskModel) -> None:
+    with pytest.raises(VersionNotFoundError):
+        add_scores(session=session, model=model, version_number=2, rows=_rows(1))
+    assert _count(session) == 0
+
+
+def test_keys_are_unique_per_model_not_globally(session: Session, model: RiskModel) -> None:
+    other = create_model(session=session, name="other")
+    add_version(session=session, model=other, **version_fields())
+    add_scores(session=session, model=model, version_number=1, rows=_rows(2, key_prefix="k"))
+    add_scores(session=session, model=other, version_number=1, rows=_rows(2, key_prefix="k"))
+    session.commit()
+    assert _count(session) == 4
+
+
+def test_scores_with_outcomes_returns_aligned_columns(session: Session, model: RiskModel) -> None:
+    add_version(session=session, model=model, **version_fields(parent_number=1))
+    rows = _rows(6)
+    ids = [
+        *add_scores(session=session, model=model, version_number=1, rows=rows[:3], created_at=T0),
+        *add_scores(
+            session=session,
+            model=model,
+            version_number=2,
+            rows=rows[3:],
+            created_at=T0 + timedelta(days=10),
+        ),
+    ]
+    observed = [T0 + timedelta(days=40 + i) for i in range(6)]
+    items = [
+        {"score_id": sid, "outcome": i % 2, "observed_at": observed[i]}
+        for i, sid in enumerate(ids)
+        if i != 4  # score 4 has no outcome yet
+    ]
+    add_outcomes(session=session, model=model, items=items)
+    session.commit()
+
+    cols = scores_with_outcomes(session=session, model=model)
+    assert cols.n == 5
+    keep = [0, 1, 2, 3, 5]
+    np.testing.assert_allclose(cols.eta, [rows[i]["eta"] for i in keep], rtol=0, atol=0)
+    np.testing.assert_allclose(cols.se_eta, [rows[i]["se_eta"] for i in keep], rtol=0, atol=0)
+    np.testing.assert_allclose(cols.probability, [rows[i]["probability"] for i in keep], rtol=0)
+    assert cols.outcome.tolist() == [0, 1, 0, 1, 1] and cols.outcome.dtype == np.int8
+    assert cols.version.tolist() == [1, 1, 1, 2, 2]
+    # SQLite's julianday has millisecond resolution: compare to the millisecond.
+    want_created = np.array(
+        [T0.replace(tzinfo=None)] * 3 + [(T0 + timedelta(days=10)).replace(tzinfo=None)] * 2,
+        dtype="datetime64[ms]",
+    )
+    assert (cols.created_at.astype("datetime64[ms]") == want_created).all()
+    want_observed = np.array(
+        [observed[i].replace(tzinfo=None) for i in keep], dtype="datetime64[ms]"
+    )
+    assert (cols.observed_at.astype("datetime64[ms]") == want_observed).all()
+
+    by_score = scores_with_outcomes(
+        session=session, model=model, since=T0 + timedelta(days=1), on="score"
+    )
+    assert by_score.version.tolist() == [2, 2]
+    by_outcome = scores_with_outcomes(
+        session=session, model=model, since=observed[1], until=observed[3], on="outcome"
+    )
+    assert by_outcome.outcome.tolist() == [1, 0]  # items 1 and 2, half-open window
+    assert scores_with_outcomes(session=session, model=model, version=1).n == 3
+    empty = scores_with_outcomes(session=session, model=model, since=T0 + timedelta(days=999))
+    assert empty.n == 0 and empty.eta.dtype == np.float64
+    assert count_scores(session=session, model=model) == 6
+    assert count_scores(session=session, model=model, version=2) == 3
+    assert len(score_inputs(session=session, model=model, limit=4)) == 4
+
+
+def test_bulk_insert_of_50000_scores(session: Session, model: RiskModel) -> None:
+    """Timing is printed, not asserted (run with -s to see it)."""
+    rows = _rows(50_000, key_prefix="bulk-")
+    start = time.perf_counter()
+    ids = add_scores(session=session, model=model, version_number=1, rows=rows)
+    session.commit()
+    elapsed = time.perf_counter() - start
+    dialect = session.get_bind().dialect.name
+    print(f"\n[{dialect}] add_scores 50,000 rows + commit: {elapsed:.2f} s")
+    assert len(ids) == 50_000 and _count(session) == 50_000
