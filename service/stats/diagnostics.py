@@ -10,11 +10,14 @@
   (2007, DPhil thesis, Oxford, "Linear programming algorithms for detecting
   separated data in binary logistic regression models"), this is the linear
   programme ``max sum_i s_i x_i'd  s.t.  s_i x_i'd >= 0, -1 <= d_j <= 1``,
-  solved with ``scipy.optimize.linprog`` (HiGHS) when the rows fit in
-  ``LP_MAX_CELLS``; a positive optimum is separation and the non-zero entries of
-  ``d`` name the terms whose estimates diverge. Larger data use the divergence
-  signature of Newton's method instead: a standard error that is huge on the
-  scale of the term (``se_j * sd_j > DIVERGED_SE``).
+  solved with ``scipy.optimize.linprog`` (HiGHS); a positive optimum is
+  separation and the non-zero entries of ``d`` name the terms whose estimates
+  diverge. The programme always runs for small data (``LP_ALWAYS_CELLS`` = rows x
+  terms); up to ``LP_MAX_CELLS`` it runs when Newton's method shows the
+  divergence signature (not converged, fitted probabilities numerically 0 or 1,
+  or a standard error large on the scale of its term, ``se_j * sd_j > SUSPECT_SE``).
+  Beyond that the signature alone decides: ``se_j * sd_j > DIVERGED_SE``
+  (under separation the SE of a diverging estimate grows like exp(|b_j| / 2)).
 """
 
 from __future__ import annotations
@@ -43,7 +46,9 @@ __all__ = [
 ]
 
 RANK_TOL = 1e-10
+LP_ALWAYS_CELLS = 100_000
 LP_MAX_CELLS = 2_000_000
+SUSPECT_SE = 1.0
 DIVERGED_SE = 5.0
 FIRTH_REMEDY = 'refit with method="firth" (bias-reduced, finite under separation) or "ridge"'
 
@@ -149,10 +154,23 @@ def check_separation(
     std_error: np.ndarray,
     term_names: Sequence[str],
     intercept_index: int | None,
+    *,
+    suspicious: bool,
 ) -> None:
-    """Raise :class:`SeparationError` if the data are separated (see module docstring)."""
+    """Raise :class:`SeparationError` if the data are separated (see module docstring).
+
+    ``suspicious``: Newton did not converge or produced fitted probabilities of 0 or 1.
+    """
     p = coef.shape[0]
-    if summary.n_positive * p <= LP_MAX_CELLS:
+    mean = summary.xtw / summary.sum_weights
+    var = np.clip(np.diag(summary.xtwx) / summary.sum_weights - mean**2, 0.0, None)
+    sd = np.where(var > 0, np.sqrt(var), 1.0)
+    scaled_se = np.where(np.isfinite(std_error), std_error * sd, np.inf)
+    if intercept_index is not None:
+        scaled_se[intercept_index] = 0.0
+    cells = summary.n_positive * p
+    suspicious = suspicious or bool((scaled_se > SUSPECT_SE).any())
+    if cells <= LP_ALWAYS_CELLS or (suspicious and cells <= LP_MAX_CELLS):
         X, s = _collect(blocks)
         d = separating_direction(X, s)
         if d is not None:
@@ -160,14 +178,6 @@ def check_separation(
             nz = [j for j in nonzero if j != intercept_index] or nonzero
             _raise_separation([term_names[j] for j in nz], "linear programme")
         return
-    mean = summary.xtw / summary.sum_weights
-    var = np.clip(np.diag(summary.xtwx) / summary.sum_weights - mean**2, 0.0, None)
-    sd = np.where(var > 0, np.sqrt(var), 1.0)
-    diverged = [
-        term_names[j]
-        for j in range(p)
-        if j != intercept_index
-        and (not np.isfinite(std_error[j]) or std_error[j] * sd[j] > DIVERGED_SE)
-    ]
-    if diverged:
+    diverged = [term_names[j] for j in range(p) if scaled_se[j] > DIVERGED_SE]
+    if cells > LP_MAX_CELLS and diverged:
         _raise_separation(diverged, "diverging estimates in Newton iterations")

@@ -224,9 +224,12 @@ def _finish(
         cov = np.full((p, p), np.inf)
     cov = 0.5 * (cov + cov.T)
     se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-    if method == "mle":
-        check_separation(blocks, summary, st.coef, se, names, intercept_index)
     converged = bool(getattr(res, "converged", False))
+    if method == "mle":
+        suspicious = not converged or st.n_extreme > 0
+        check_separation(
+            blocks, summary, st.coef, se, names, intercept_index, suspicious=suspicious
+        )
     stop = str(getattr(res, "stop_reason", ""))
     warnings: list[str] = []
     if not converged:
