@@ -8,8 +8,9 @@ For outcome y_t with predicted risk p_t, the log-likelihood-ratio score for the 
 and the chart is S_0 = 0, S_t = max(0, S_{t-1} + W_t), signalling when S_t >= h. R > 1
 watches for risk *above* prediction, R < 1 for risk below it; a two-sided monitor runs one
 chart of each. The recursion is evaluated without a loop over records through the Lindley
-identity ``S_t = C_t - min(0, min_{s<=t} C_s)`` with C the cumulative sum of W. After a
-signal the chart restarts at 0 from the next record (a loop over signals, not records).
+identity ``S_t = C_t - min(-S_0, min_{s<=t} C_s)`` with C the cumulative sum of W, in
+chunks of records (4096, doubling while no signal occurs). After a signal the chart
+restarts at 0 from the next record (the loop is over chunks and signals, not records).
 The caller resets a chart (e.g. after a champion change) by passing only the records from
 the reset point on (``start`` labels their indices).
 
@@ -84,6 +85,9 @@ class ControlLimit:
     method: str
 
 
+_CHUNK = 4096  # records per first pass after a (re)start; doubles while no signal occurs
+
+
 def _check_or(odds_ratio: float) -> float:
     if not (np.isfinite(odds_ratio) and odds_ratio > 0 and odds_ratio != 1.0):
         raise SpecError(
@@ -127,21 +131,24 @@ def cusum(
             remedy="choose h with limit_for_arl or limit_for_false_alarm",
         )
     w = cusum_scores(y, p, odds_ratio)
-    path = _lindley(w)
+    n = w.shape[0]
+    path = np.empty(n)
     signals: list[int] = []
-    pos = 0
-    while True:  # one pass per signal
-        hit = np.flatnonzero(path[pos:] >= h)
-        if hit.size == 0:
-            break
-        t = pos + int(hit[0])
-        signals.append(start + t)
-        if not restart_after_signal:
-            signals.extend(start + pos + int(i) for i in hit[1:])
-            break
-        pos = t + 1
-        if pos < path.shape[0]:
-            path[pos:] = _lindley(w[pos:])
+    pos, s0, size = 0, 0.0, _CHUNK
+    while pos < n:  # one pass per chunk or signal, vectorised inside
+        end = min(n, pos + size)
+        c = np.cumsum(w[pos:end])
+        seg = c - np.minimum(np.minimum.accumulate(c), -s0)  # Lindley from S = s0
+        hit = np.flatnonzero(seg >= h)
+        if restart_after_signal and hit.size:
+            t = int(hit[0])
+            path[pos : pos + t + 1] = seg[: t + 1]
+            signals.append(start + pos + t)
+            pos, s0, size = pos + t + 1, 0.0, _CHUNK
+            continue
+        path[pos:end] = seg
+        signals.extend(start + pos + int(k) for k in hit)
+        pos, s0, size = end, float(seg[-1]), 2 * size
     yy = np.asarray(y, dtype=np.float64)
     state = float(path[-1]) if path.size else 0.0
     if restart_after_signal and signals and signals[-1] == start + path.shape[0] - 1:

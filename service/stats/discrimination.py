@@ -7,10 +7,11 @@ x_1..x_m and non-events y_1..y_n with psi(a, b) = 1 if a > b, 1/2 if a = b, 0 ot
     AUC   = mean_i V10_i = mean_j V01_j
     var(AUC) = S10 / m + S01 / n,   S10 = sample variance of V10, S01 = of V01
 
-The placement values are computed from sorted arrays and binary search (the counts of
-non-events below / tied with each event), which is the O(N log N) midrank algorithm of
-Sun & Xu (IEEE Signal Processing Letters 2014) written with cumulative weights instead of
-ranks, so frequency weights are supported (unit weights give the textbook DeLong figures).
+The placement values come from one sort of all scores and cumulative sums over runs of
+tied scores (the non-event weight below / tied with each event), which is the
+O(N log N) midrank algorithm of Sun & Xu (IEEE Signal Processing Letters 2014) written with
+cumulative weights instead of ranks, so frequency weights are supported (unit weights
+give the textbook DeLong figures).
 
 The interval is a Wald interval on the logit scale,
 ``logit(AUC) +/- z * SE / (AUC (1 - AUC))`` back-transformed, which stays inside (0, 1)
@@ -70,18 +71,24 @@ class AucDifference:
 def _placements(
     score: FloatArray, event: np.ndarray, weights: FloatArray
 ) -> tuple[FloatArray, FloatArray, FloatArray, FloatArray]:
-    """Placement values V10 (one per event) and V01 (one per non-event) and their weights."""
-    xs, wx = score[event], weights[event]
-    ys, wy = score[~event], weights[~event]
-    oy = np.argsort(ys, kind="stable")
-    ys_sorted, cwy = ys[oy], np.concatenate(([0.0], np.cumsum(wy[oy])))
-    ox = np.argsort(xs, kind="stable")
-    xs_sorted, cwx = xs[ox], np.concatenate(([0.0], np.cumsum(wx[ox])))
-    lo, hi = np.searchsorted(ys_sorted, xs, "left"), np.searchsorted(ys_sorted, xs, "right")
-    v10 = (cwy[lo] + 0.5 * (cwy[hi] - cwy[lo])) / cwy[-1]
-    lo, hi = np.searchsorted(xs_sorted, ys, "left"), np.searchsorted(xs_sorted, ys, "right")
-    v01 = ((cwx[-1] - cwx[hi]) + 0.5 * (cwx[hi] - cwx[lo])) / cwx[-1]
-    return v10, wx, v01, wy
+    """Placement values V10 (one per event) and V01 (one per non-event) and their weights.
+
+    One sort of all scores; per run of tied scores, the non-event weight below the run plus
+    half the non-event weight in it gives V10 (and symmetrically V01).
+    """
+    order = np.argsort(score)
+    ss, ev, ww = score[order], event[order], weights[order]
+    new_run = np.r_[True, ss[1:] != ss[:-1]]
+    starts = np.flatnonzero(new_run)
+    run = np.cumsum(new_run) - 1
+    pos_w = np.add.reduceat(np.where(ev, ww, 0.0), starts)
+    neg_w = np.add.reduceat(np.where(ev, 0.0, ww), starts)
+    wp, wn = pos_w.sum(), neg_w.sum()
+    v10_run = (np.cumsum(neg_w) - 0.5 * neg_w) / wn
+    v01_run = (wp - np.cumsum(pos_w) + 0.5 * pos_w) / wp
+    placed = np.empty_like(ss)  # per record, in the caller's order (pairs records across scores)
+    placed[order] = np.where(ev, v10_run[run], v01_run[run])
+    return placed[event], weights[event], placed[~event], weights[~event]
 
 
 def _prepare(
