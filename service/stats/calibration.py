@@ -51,7 +51,11 @@ from service.stats._risk_groups import (
 from service.stats.discrimination import AucResult, auc_delong
 from service.stats.fit import fit_logistic
 from service.stats.metrics import brier, log_loss
-from service.stats.smoothing import loess
+from service.stats.smoothing import (
+    FlexibleCalibration,
+    flexible_calibration,
+    flexible_calibration_sorted,
+)
 
 __all__ = [
     "CalibrationParameter",
@@ -131,21 +135,6 @@ class Spiegelhalter:
     z: float
     p_value: float
     method: str
-    n_obs: int
-    n_events: float
-
-
-@dataclass(frozen=True)
-class FlexibleCalibration:
-    """Loess calibration curve on a grid, and ICI / E50 / E90 / Emax."""
-
-    ici: float
-    e50: float
-    e90: float
-    emax: float
-    curve_predicted: FloatArray  # (k,) grid of predicted risk
-    curve_observed: FloatArray  # (k,) smoothed observed rate at the grid
-    smoother: str
     n_obs: int
     n_events: float
 
@@ -365,58 +354,6 @@ def reliability_groups(
     return reliability_sorted(ps, ys, ws, g=groups, confidence_level=confidence_level)
 
 
-def _weighted_quantile(v: FloatArray, w: FloatArray | None, q: float) -> float:
-    if w is None:
-        return float(np.quantile(v, q))
-    o = np.argsort(v)
-    cw = np.cumsum(w[o])
-    return float(v[o][min(int(np.searchsorted(cw, q * cw[-1])), v.shape[0] - 1)])
-
-
-def _flexible_sorted(
-    ps: FloatArray,
-    ys: FloatArray,
-    ws: FloatArray | None,
-    *,
-    span: float,
-    degree: int,
-    max_points: int,
-    grid: int,
-) -> FlexibleCalibration:
-    curve = loess(
-        ps, ys, weights=ws, span=span, degree=degree, max_points=max_points, presorted=True
-    )
-    d = np.abs(curve.at(ps) - ps)
-    sw = float(ps.shape[0]) if ws is None else float(ws.sum())
-    xg = np.linspace(ps[0], ps[-1], grid)
-    return FlexibleCalibration(
-        weighted_sum(d, ws) / sw,
-        _weighted_quantile(d, ws, 0.5),
-        _weighted_quantile(d, ws, 0.9),
-        float(d.max()),
-        xg,
-        curve.at(xg),
-        curve.method + "; y smoothed on p (probability scale)",
-        int(ps.shape[0]),
-        weighted_sum(ys, ws),
-    )
-
-
-def flexible_calibration(
-    y: ArrayLike,
-    p: ArrayLike,
-    *,
-    weights: ArrayLike | None = None,
-    span: float = 0.75,
-    degree: int = 2,
-    max_points: int = 1000,
-    grid: int = 101,
-) -> FlexibleCalibration:
-    """Loess calibration curve and ICI, E50, E90, Emax (Austin & Steyerberg 2019)."""
-    ps, ys, ws = _sorted(*_inputs(y, p, weights))
-    return _flexible_sorted(ps, ys, ws, span=span, degree=degree, max_points=max_points, grid=grid)
-
-
 def calibration_report(
     y: ArrayLike,
     p: ArrayLike,
@@ -463,5 +400,7 @@ def calibration_report(
         hosmer_lemeshow=hosmer_lemeshow_sorted(ps, ys, ws, g=groups, development=development),
         spiegelhalter=spiegelhalter_z(yy, pp, weights=w),
         reliability=reliability_sorted(ps, ys, ws, g=groups, confidence_level=confidence_level),
-        flexible=_flexible_sorted(ps, ys, ws, span=span, degree=degree, max_points=1000, grid=101),
+        flexible=flexible_calibration_sorted(
+            ps, ys, ws, span=span, degree=degree, max_points=1000, grid=101
+        ),
     )

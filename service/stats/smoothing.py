@@ -22,6 +22,10 @@ Computation, without loops over rows:
 * the local fits as a batch of small normal-equation systems (pseudo-inverse, so windows
   with too few distinct x values degrade gracefully);
 * values at the records by linear interpolation between aggregate points.
+
+Flexible calibration (Austin & Steyerberg, Stat Med 2019): loess of y on predicted p, and
+with d_i = |curve(p_i) - p_i|: ICI = weighted mean of d, E50 / E90 its median and 90th
+percentile, Emax its maximum.
 """
 
 from __future__ import annotations
@@ -32,9 +36,15 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from service.errors import SpecError
-from service.stats._outcome_arrays import FloatArray
+from service.stats._outcome_arrays import (
+    FloatArray,
+    as_outcomes,
+    as_probabilities,
+    as_weights,
+    weighted_sum,
+)
 
-__all__ = ["LoessCurve", "loess"]
+__all__ = ["FlexibleCalibration", "LoessCurve", "flexible_calibration", "loess"]
 
 
 @dataclass(frozen=True)
@@ -169,3 +179,76 @@ def loess(
         f"iterations; {how}; linear interpolation between points"
     )
     return LoessCurve(x0, fitted, span, degree, exact, int(xv.shape[0]), method)
+
+
+@dataclass(frozen=True)
+class FlexibleCalibration:
+    """Loess calibration curve on a grid, and ICI / E50 / E90 / Emax."""
+
+    ici: float
+    e50: float
+    e90: float
+    emax: float
+    curve_predicted: FloatArray  # (k,) grid of predicted risk
+    curve_observed: FloatArray  # (k,) smoothed observed rate at the grid
+    smoother: str
+    n_obs: int
+    n_events: float
+
+
+def _weighted_quantile(v: FloatArray, w: FloatArray | None, q: float) -> float:
+    if w is None:
+        return float(np.quantile(v, q))
+    o = np.argsort(v)
+    cw = np.cumsum(w[o])
+    return float(v[o][min(int(np.searchsorted(cw, q * cw[-1])), v.shape[0] - 1)])
+
+
+def flexible_calibration_sorted(
+    ps: FloatArray,
+    ys: FloatArray,
+    ws: FloatArray | None,
+    *,
+    span: float,
+    degree: int,
+    max_points: int,
+    grid: int,
+) -> FlexibleCalibration:
+    curve = loess(
+        ps, ys, weights=ws, span=span, degree=degree, max_points=max_points, presorted=True
+    )
+    d = np.abs(curve.at(ps) - ps)
+    sw = float(ps.shape[0]) if ws is None else float(ws.sum())
+    xg = np.linspace(ps[0], ps[-1], grid)
+    return FlexibleCalibration(
+        weighted_sum(d, ws) / sw,
+        _weighted_quantile(d, ws, 0.5),
+        _weighted_quantile(d, ws, 0.9),
+        float(d.max()),
+        xg,
+        curve.at(xg),
+        curve.method + "; y smoothed on p (probability scale)",
+        int(ps.shape[0]),
+        weighted_sum(ys, ws),
+    )
+
+
+def flexible_calibration(
+    y: ArrayLike,
+    p: ArrayLike,
+    *,
+    weights: ArrayLike | None = None,
+    span: float = 0.75,
+    degree: int = 2,
+    max_points: int = 1000,
+    grid: int = 101,
+) -> FlexibleCalibration:
+    """Loess calibration curve and ICI, E50, E90, Emax (Austin & Steyerberg 2019)."""
+    yy = as_outcomes(y)
+    pp = as_probabilities(p, yy.shape[0])
+    w = as_weights(weights, yy.shape[0])
+    o = np.argsort(pp)
+    ps, ys, ws = pp[o], yy[o], None if w is None else w[o]
+    return flexible_calibration_sorted(
+        ps, ys, ws, span=span, degree=degree, max_points=max_points, grid=grid
+    )
