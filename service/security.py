@@ -1,0 +1,256 @@
+"""API keys, roles and the audit trail.
+
+Keys
+----
+A key is ``rk_`` followed by :func:`secrets.token_urlsafe` of :data:`KEY_BYTES` random bytes
+(256 bits). It is shown once, when it is created; the store keeps only
+
+* ``key_hash`` = hex SHA-256 of the key, or hex HMAC-SHA256 keyed by the server secret
+  ``RISKFIT_API_KEY_PEPPER`` when one is set (then a stolen database alone cannot be used to
+  test guesses offline);
+* ``prefix`` = the first :data:`PREFIX_LEN` characters, so people can tell keys apart in lists.
+
+A request presents the key as ``Authorization: Bearer <key>`` or ``X-API-Key: <key>``. The key
+is looked up by its hash (a unique index) and the stored hash is compared once more with
+:func:`hmac.compare_digest`. Keys never reach a log line or an error body.
+
+Roles are ordered ``scorer < modeler < admin``; a route states the least role it admits.
+
+Audit
+-----
+:func:`install_audit` hooks a session so that, in the same transaction as the change itself,
+every new model version (``version.create``), champion change (``champion.change``), refit run
+(``refit.start``) and refit status change (``refit.finish``) appends an ``audit_event`` row
+with the acting key id. Key creation and revocation are recorded by :func:`issue_key` and
+:func:`revoke` (``key.create``, ``key.revoke``).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import hmac
+import secrets
+from dataclasses import dataclass
+from typing import Any
+
+from fastapi import Request
+from sqlalchemy import event, inspect
+from sqlalchemy.orm import Session
+
+from models_store.audit import record
+from models_store.keys import create_key, find_key_by_hash, get_key, revoke_key, touch_key
+from models_store.orm import ApiKey, AuditEvent, ChampionChange, ModelVersion, RefitRun, RiskModel
+from service.api.deps import ANONYMOUS, ROLE_RANK, Principal
+from service.config import Settings
+from service.errors import AuthenticationError, NotFoundError, PermissionDeniedError
+
+__all__ = [
+    "KEY_PREFIX",
+    "IssuedKey",
+    "authorize",
+    "hash_key",
+    "install_audit",
+    "issue_key",
+    "new_key",
+    "presented_key",
+    "revoke",
+]
+
+KEY_PREFIX = "rk_"
+KEY_BYTES = 32
+PREFIX_LEN = 10
+_AUDIT_FLAG = "riskfit_audit_key_id"
+_CREATE_HINT = "an admin creates one with `riskfit keys create --role scorer` or POST /api-keys"
+
+
+@dataclass(frozen=True)
+class IssuedKey:
+    """A key just created: ``key`` is the only copy of the secret anywhere."""
+
+    id: int
+    name: str
+    role: str
+    prefix: str
+    key: str
+
+
+def new_key() -> str:
+    """A fresh random key: ``rk_`` + 43 URL-safe characters (256 random bits)."""
+    return KEY_PREFIX + secrets.token_urlsafe(KEY_BYTES)
+
+
+def hash_key(key: str, settings: Settings) -> str:
+    """Hex digest stored for ``key``: HMAC-SHA256 with the pepper if set, else SHA-256."""
+    data = key.encode("utf-8", "surrogatepass")
+    if settings.api_key_pepper is not None:
+        pepper = settings.api_key_pepper.get_secret_value().encode()
+        return hmac.new(pepper, data, hashlib.sha256).hexdigest()
+    return hashlib.sha256(data).hexdigest()
+
+
+def issue_key(
+    *, session: Session, settings: Settings, role: str, name: str, by_key_id: int | None = None
+) -> IssuedKey:
+    """Create and store a key (hash only) and its ``key.create`` audit event; no commit."""
+    key = new_key()
+    row = create_key(
+        session=session,
+        name=name,
+        role=role,
+        key_hash=hash_key(key, settings),
+        prefix=key[:PREFIX_LEN],
+    )
+    session.flush()
+    record(
+        session=session,
+        action="key.create",
+        key_id=by_key_id,
+        details={"key_id": row.id, "role": role, "name": name, "prefix": row.prefix},
+    )
+    return IssuedKey(id=row.id, name=row.name, role=row.role, prefix=row.prefix, key=key)
+
+
+def revoke(*, session: Session, key_id: int, by_key_id: int | None = None) -> ApiKey:
+    """Revoke key ``key_id`` (idempotent) and record ``key.revoke``; no commit."""
+    existing = get_key(session=session, key_id=key_id)
+    if existing is None:
+        raise NotFoundError(
+            f"there is no API key with id {key_id}",
+            field="key_id",
+            value=key_id,
+            remedy="list the keys (GET /api-keys or `riskfit keys list`) for their ids",
+        )
+    was_active = existing.revoked_at is None
+    row = revoke_key(session=session, key_id=key_id)
+    assert row is not None
+    if was_active:
+        record(
+            session=session,
+            action="key.revoke",
+            key_id=by_key_id,
+            details={"key_id": row.id, "role": row.role, "prefix": row.prefix},
+        )
+    return row
+
+
+def presented_key(request: Request) -> str | None:
+    """The key sent as ``Authorization: Bearer <key>`` or ``X-API-Key``, else None."""
+    auth = request.headers.get("authorization")
+    if auth:
+        scheme, _, value = auth.partition(" ")
+        if scheme.lower() == "bearer" and value.strip():
+            return value.strip()
+        raise AuthenticationError(
+            "the Authorization header is not of the form 'Bearer <key>'",
+            field="Authorization",
+            value=scheme[:20],
+            remedy="send Authorization: Bearer <key> (or the header X-API-Key: <key>)",
+        )
+    key = request.headers.get("x-api-key", "").strip()
+    return key or None
+
+
+def _known_key(session: Session, settings: Settings, key: str) -> ApiKey:
+    digest = hash_key(key, settings)
+    row = find_key_by_hash(session=session, key_hash=digest, active_only=False)
+    if row is None or not hmac.compare_digest(row.key_hash, digest):
+        raise AuthenticationError(
+            "the API key is not known to this service",
+            field="Authorization",
+            value=None,  # never echo a key, not even part of it
+            remedy=f"check the key you sent; {_CREATE_HINT}",
+        )
+    if row.revoked_at is not None:
+        raise AuthenticationError(
+            f"API key {row.prefix}... (id {row.id}) was revoked at {row.revoked_at.isoformat()}",
+            field="Authorization",
+            value=row.prefix,
+            remedy=f"use a current key; {_CREATE_HINT}",
+        )
+    return row
+
+
+def authorize(request: Request, session: Session, role: str) -> Principal:
+    """The caller of ``request`` if it holds ``role`` or a higher one.
+
+    Raises :class:`AuthenticationError` (401) for a missing, unknown or revoked key and
+    :class:`PermissionDeniedError` (403) naming the role needed. With ``auth_required`` off,
+    every caller is an anonymous admin. Either way the session's writes are audited.
+    """
+    settings: Settings = request.app.state.settings
+    if not settings.auth_required:
+        install_audit(session, key_id=None)
+        return ANONYMOUS
+    key = presented_key(request)
+    if key is None:
+        raise AuthenticationError(
+            f"{request.method} {request.url.path} needs an API key",
+            field="Authorization",
+            value=None,
+            remedy=f"send Authorization: Bearer <key> (or X-API-Key: <key>); {_CREATE_HINT}",
+        )
+    row = _known_key(session, settings, key)
+    if ROLE_RANK[row.role] < ROLE_RANK[role]:
+        raise PermissionDeniedError(
+            f"{request.method} {request.url.path} needs the role {role!r} or higher; "
+            f"key {row.prefix}... (id {row.id}) has the role {row.role!r}",
+            field="role",
+            value=row.role,
+            remedy=f"use a key with the role {role!r} or higher (roles: scorer < modeler < admin)",
+            details={"required_role": role},
+        )
+    if touch_key(session=session, key=row):
+        session.commit()  # last_used_at, at most once a minute per key
+    install_audit(session, key_id=row.id)
+    return Principal(role=row.role, key_id=row.id, name=row.name)  # type: ignore[arg-type]
+
+
+# --- audit hook ---------------------------------------------------------------------------
+
+
+def install_audit(session: Session, *, key_id: int | None) -> None:
+    """Record version, champion and refit changes made through ``session`` as ``key_id``."""
+    first = _AUDIT_FLAG not in session.info
+    session.info[_AUDIT_FLAG] = key_id
+    if first:
+        event.listen(session, "before_flush", _audit_before_flush)
+
+
+def _model_name(session: Session, model_id: int) -> str | None:
+    with session.no_autoflush:
+        model = session.get(RiskModel, model_id)
+    return None if model is None else model.name
+
+
+def _audit_before_flush(session: Session, _context: Any, _instances: Any) -> None:
+    key_id = session.info.get(_AUDIT_FLAG)
+    events: list[tuple[str, int, dict[str, Any]]] = []
+    for obj in list(session.new):
+        if isinstance(obj, ModelVersion):
+            details = {"number": obj.number, "origin": obj.origin, "method": obj.method}
+            events.append(("version.create", obj.model_id, details))
+        elif isinstance(obj, ChampionChange):
+            details = {
+                "version": obj.version_number,
+                "previous_version": obj.previous_version_number,
+                "reason": obj.reason,
+            }
+            events.append(("champion.change", obj.model_id, details))
+        elif isinstance(obj, RefitRun):
+            events.append(("refit.start", obj.model_id, {"status": obj.status}))
+    for obj in list(session.dirty):
+        if isinstance(obj, RefitRun):
+            history = inspect(obj).attrs.status.history
+            if history.has_changes():
+                details = {"refit_run_id": obj.id, "status": obj.status}
+                events.append(("refit.finish", obj.model_id, details))
+    for action, model_id, details in events:
+        name = _model_name(session, model_id) if model_id is not None else None
+        _add_event(session, action=action, key_id=key_id, model_name=name, details=details)
+
+
+def _add_event(
+    session: Session, *, action: str, key_id: int | None, model_name: str | None, details: Any
+) -> None:
+    """Add an audit row to the flush in progress (``record`` itself flushes, so not here)."""
+    session.add(AuditEvent(action=action, key_id=key_id, model_name=model_name, details=details))
