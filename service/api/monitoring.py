@@ -1,0 +1,272 @@
+"""Monitoring routes: calibration report, drift view, alerts, and their plots.
+
+* ``GET /risk-models/{model}/calibration`` (+ ``/calibration/reliability.{svg|png}``)
+* ``GET /risk-models/{model}/drift`` (+ ``/drift/measures.{svg|png}``, ``/drift/psi.{svg|png}``)
+* ``GET /risk-models/{model}/alerts``
+"""
+
+from __future__ import annotations
+
+import threading
+from datetime import datetime
+from typing import Annotated, Any, Literal
+
+from fastapi import APIRouter, Depends, Query, Request, Response
+from prometheus_client import Counter, Gauge
+
+from models_store.alerts import list_alerts
+from models_store.orm import AlertRecord, RiskModel
+from models_store.versions import require_version
+from service.api.deps import ModelDep, ScorerAccess, SessionDep, SettingsDep
+from service.api.responses import JSONBytes
+from service.config import Settings
+from service.errors import InvalidInputError
+from service.monitoring import LimitCache, Window, alert_public, calibration_view, drift_view
+from service.plots import PlotFormat, drift_figure, psi_figure, reliability_figure, render
+from service.schemas.monitoring import AlertList, CalibrationReportPublic, DriftPublic
+
+router = APIRouter(prefix="/risk-models/{model}", tags=["monitoring"])
+
+MEDIA = {"svg": "image/svg+xml", "png": "image/png"}
+THRESHOLD_FIELDS = (
+    "alert_citl_tolerance",
+    "alert_slope_low",
+    "alert_slope_high",
+    "alert_oe_low",
+    "alert_oe_high",
+    "alert_psi",
+    "psi_min_records",
+    "cusum_target_arl",
+    "cusum_odds_ratio_up",
+    "cusum_odds_ratio_down",
+)
+_state_lock = threading.Lock()
+
+
+def get_window(
+    model: ModelDep,
+    session: SessionDep,
+    since: Annotated[
+        datetime | None, Query(description="Window start (inclusive), ISO 8601 with zone.")
+    ] = None,
+    until: Annotated[
+        datetime | None, Query(description="Window end (exclusive), ISO 8601 with zone.")
+    ] = None,
+    on: Annotated[
+        Literal["score", "outcome"], Query(description="Window on score time or outcome time.")
+    ] = "score",
+    version: Annotated[
+        int | None, Query(ge=1, le=2_147_483_647, description="One version (default: all).")
+    ] = None,
+) -> Window:
+    """The ``since``/``until``/``on``/``version`` query, checked (zones, order, version)."""
+    for name, value in (("since", since), ("until", until)):
+        if value is not None and value.utcoffset() is None:
+            raise InvalidInputError(
+                f"{name} has no time zone",
+                field=name,
+                value=value.isoformat(),
+                remedy=f"give {name} in UTC, e.g. {value.isoformat()}Z",
+            )
+    if since is not None and until is not None and since >= until:
+        raise InvalidInputError(
+            "the window is empty: since must be before until",
+            field="until",
+            value=until.isoformat(),
+            remedy="give an until later than since",
+        )
+    if version is not None:
+        require_version(session=session, model=model, number=version)
+    return Window(since=since, until=until, on=on, version=version)
+
+
+WindowDep = Annotated[Window, Depends(get_window)]
+Level = Annotated[float | None, Query(gt=0.0, lt=1.0, description="Default: the setting.")]
+By = Annotated[
+    Literal["count", "time"],
+    Query(alias="window", description="Windows of `size` records (count) or days (time)."),
+]
+Size = Annotated[int | None, Query(ge=1, le=10_000_000, description="Records or days.")]
+
+
+def _limit_cache(request: Request) -> LimitCache:
+    with _state_lock:
+        cache = getattr(request.app.state, "cusum_limits", None)
+        if cache is None:
+            cache = request.app.state.cusum_limits = LimitCache()
+    return cache
+
+
+def _alert_metrics(request: Request) -> tuple[Counter, Gauge]:
+    """The alert collectors on the app's own registry (created on first use)."""
+    with _state_lock:
+        pair = getattr(request.app.state, "alert_metrics", None)
+        if pair is None:
+            registry = request.app.state.metrics.registry
+            pair = (
+                Counter(
+                    "riskfit_alerts_raised",
+                    "Monitoring alerts stored, by model and measure.",
+                    ("model", "measure"),
+                    registry=registry,
+                ),
+                Gauge(
+                    "riskfit_alerts_open",
+                    "Open monitoring alerts per model at the last evaluation.",
+                    ("model",),
+                    registry=registry,
+                ),
+            )
+            request.app.state.alert_metrics = pair
+    return pair
+
+
+def thresholds(settings: Settings) -> dict[str, Any]:
+    return {name: getattr(settings, name) for name in THRESHOLD_FIELDS}
+
+
+def evaluate_drift(
+    request: Request,
+    session: Any,
+    model: RiskModel,
+    window: Window,
+    by: str,
+    size: int | None,
+    settings: Settings,
+    level: float | None,
+) -> dict[str, Any]:
+    """Run the drift view and count the alerts it stored in ``/metrics``."""
+    body, new = drift_view(
+        session=session,
+        model=model,
+        window=window,
+        by=by,  # type: ignore[arg-type]
+        size=size,
+        settings=settings,
+        cache=_limit_cache(request),
+        confidence_level=level,
+    )
+    raised, open_gauge = _alert_metrics(request)
+    for alert in new:
+        raised.labels(model.name, alert.measure).inc()
+    open_gauge.labels(model.name).set(
+        len(list_alerts(session=session, model=model, open_only=True))
+    )
+    return body
+
+
+@router.get(
+    "/calibration",
+    response_model=CalibrationReportPublic,
+    summary="Calibration report of a window of scored outcomes",
+    description="Every measure carries its method, interval and level, and the counts. A "
+    "window with too few outcomes answers 200 with `status: not_enough_outcomes`, the counts "
+    "and the minimum counts, and no measures.",
+)
+def get_calibration(
+    model: ModelDep,
+    session: SessionDep,
+    settings: SettingsDep,
+    window: WindowDep,
+    _: ScorerAccess,
+    confidence_level: Level = None,
+) -> JSONBytes:
+    body = calibration_view(
+        session=session,
+        model=model,
+        window=window,
+        settings=settings,
+        confidence_level=confidence_level,
+    )
+    return JSONBytes(body)
+
+
+@router.get(
+    "/calibration/reliability.{fmt}",
+    summary="Reliability diagram (SVG or PNG)",
+    response_class=Response,
+)
+def get_reliability_plot(
+    fmt: PlotFormat,
+    model: ModelDep,
+    session: SessionDep,
+    settings: SettingsDep,
+    window: WindowDep,
+    _: ScorerAccess,
+) -> Response:
+    body = calibration_view(session=session, model=model, window=window, settings=settings)
+    return Response(render(reliability_figure(body), fmt), media_type=MEDIA[fmt])
+
+
+@router.get(
+    "/drift",
+    response_model=DriftPublic,
+    summary="Calibration over time, CUSUM, input drift and alerts",
+    description="Key measures in consecutive windows, the two-sided risk-adjusted Bernoulli "
+    "CUSUM of the serving version since it became champion, PSI per feature against the "
+    "version's training reference, and the alert conditions found. Idempotent, but not "
+    "read-only: a condition seen for the first time is stored as an alert (once).",
+)
+def get_drift(
+    request: Request,
+    model: ModelDep,
+    session: SessionDep,
+    settings: SettingsDep,
+    window: WindowDep,
+    _: ScorerAccess,
+    by: By = "count",
+    size: Size = None,
+    confidence_level: Level = None,
+) -> JSONBytes:
+    body = evaluate_drift(request, session, model, window, by, size, settings, confidence_level)
+    return JSONBytes(body)
+
+
+@router.get(
+    "/drift/{plot}.{fmt}",
+    summary="Drift plots: `measures` or `psi` (SVG or PNG)",
+    response_class=Response,
+)
+def get_drift_plot(
+    plot: Literal["measures", "psi"],
+    fmt: PlotFormat,
+    request: Request,
+    model: ModelDep,
+    session: SessionDep,
+    settings: SettingsDep,
+    window: WindowDep,
+    _: ScorerAccess,
+    by: By = "count",
+    size: Size = None,
+) -> Response:
+    body = evaluate_drift(request, session, model, window, by, size, settings, None)
+    fig = drift_figure(body, thresholds(settings)) if plot == "measures" else psi_figure(body)
+    return Response(render(fig, fmt), media_type=MEDIA[fmt])
+
+
+def alerts_public(
+    session: Any, model: RiskModel, settings: Settings, open_only: bool, limit: int
+) -> dict[str, Any]:
+    rows: list[AlertRecord] = list_alerts(
+        session=session, model=model, open_only=open_only, limit=limit
+    )
+    items = [alert_public(a) for a in rows]
+    return {
+        "model": model.name,
+        "count": len(items),
+        "open": sum(1 for a in items if a["open"]),
+        "items": items,
+        "thresholds": thresholds(settings),
+    }
+
+
+@router.get("/alerts", response_model=AlertList, summary="Stored monitoring alerts, newest first")
+def get_alerts(
+    model: ModelDep,
+    session: SessionDep,
+    settings: SettingsDep,
+    _: ScorerAccess,
+    open_only: Annotated[bool, Query(description="Only unresolved alerts.")] = False,
+    limit: Annotated[int, Query(ge=1, le=10_000)] = 500,
+) -> JSONBytes:
+    return JSONBytes(alerts_public(session, model, settings, open_only, limit))

@@ -1,0 +1,50 @@
+"""``POST /risk-models/{model}/outcomes``: join observed outcomes to logged scores."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter
+
+from service.api.deps import ModelDep, ScorerAccess, SessionDep
+from service.api.responses import JSONBytes
+from service.monitoring import ingest_outcomes
+from service.schemas.outcomes import OutcomeBatchPublic, OutcomeCreate
+
+router = APIRouter(prefix="/risk-models/{model}/outcomes", tags=["outcomes"])
+
+DESCRIPTION = """
+Each item names its score by `score_id` (from `POST .../scores`) or by the record's `key`,
+and gives `outcome` 0 or 1 and optionally `observed_at` (ISO 8601 with a zone; default now).
+
+Every item lands in exactly one list of the answer:
+`accepted` (stored now), `duplicates` (this same outcome was already stored, or sent earlier
+in the batch: counted once), `conflicts` (the score already has the other outcome: refused,
+the first one stands), `unknown` (no score of this model has that id or key).
+Accepted outcomes are committed before the answer is sent, whatever the status.
+
+Status:
+* **200** - nothing refused (every item accepted or duplicate);
+* **207** - some items stood (accepted or duplicate) and some were refused (conflict or
+  unknown): read the lists;
+* **409** - no item stood and at least one conflicts; the body also has `error`;
+* **404** - every item names an unknown score; the body also has `error`;
+* **422** - the batch is malformed (nothing stored), with the field, value and remedy.
+"""
+
+
+@router.post(
+    "",
+    response_model=OutcomeBatchPublic,
+    summary="Record observed outcomes of scored records (idempotent)",
+    description=DESCRIPTION,
+    responses={
+        207: {"model": OutcomeBatchPublic, "description": "Some items refused; see the lists."},
+        409: {"model": OutcomeBatchPublic, "description": "Every item that stood conflicts."},
+        404: {"model": OutcomeBatchPublic, "description": "Every item names an unknown score."},
+    },
+)
+def post_outcomes(
+    body: OutcomeCreate, model: ModelDep, session: SessionDep, _: ScorerAccess
+) -> JSONBytes:
+    items = [item.model_dump(exclude_none=True) for item in body.outcomes]
+    status, answer = ingest_outcomes(session=session, model=model, items=items)
+    return JSONBytes(answer, status_code=status)
