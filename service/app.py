@@ -33,6 +33,9 @@ ROUTERS: list[str] = [
     "service.api.versions",
     "service.api.champion",
     "service.api.scores",
+    "service.api.outcomes",
+    "service.api.monitoring",
+    "service.api.dashboard",
 ]
 
 DESCRIPTION = """

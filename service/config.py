@@ -30,6 +30,45 @@ class Settings(BaseSettings):
         0.95, gt=0.0, lt=1.0, description="Confidence level when a request gives none."
     )
 
+    # --- monitoring (outcomes, calibration, drift, alerts) ---
+    monitor_min_outcomes: int = Field(
+        100, ge=10, description="Fewest outcomes a calibration report or drift window needs."
+    )
+    monitor_min_events: int = Field(
+        10, ge=2, description="Fewest events (and non-events) a report or drift window needs."
+    )
+    drift_window_records: int = Field(
+        1000, ge=10, description="Default drift window size by count (records per window)."
+    )
+    drift_window_days: int = Field(30, ge=1, description="Default drift window size by time.")
+    drift_max_windows: int = Field(
+        60, ge=1, le=1000, description="Most recent drift windows computed and shown."
+    )
+    cusum_odds_ratio_up: float = Field(
+        2.0, gt=1.0, description="CUSUM alternative: odds of an event R times predicted (up)."
+    )
+    cusum_odds_ratio_down: float = Field(
+        0.5, gt=0.0, lt=1.0, description="CUSUM alternative for risk below prediction (down)."
+    )
+    cusum_target_arl: float = Field(
+        10_000.0, gt=10.0, description="Target in-control average run length (records) per chart."
+    )
+    cusum_n_sims: int = Field(
+        200, ge=50, le=20_000, description="Simulated in-control streams for the CUSUM limit."
+    )
+    alert_citl_tolerance: float = Field(
+        0.2, gt=0.0, description="Alert when the calibration-in-the-large CI lies beyond +/-."
+    )
+    alert_slope_low: float = Field(0.8, gt=0.0, description="Alert when the slope CI is below.")
+    alert_slope_high: float = Field(1.25, gt=1.0, description="Alert when the slope CI is above.")
+    alert_oe_low: float = Field(0.8, gt=0.0, description="Alert when the O/E CI lies below.")
+    alert_oe_high: float = Field(1.25, gt=1.0, description="Alert when the O/E CI lies above.")
+    alert_psi: float = Field(0.25, gt=0.0, description="Alert when a feature's PSI reaches this.")
+    psi_min_records: int = Field(100, ge=10, description="Fewest records for a PSI alert.")
+    psi_max_records: int = Field(
+        20_000, ge=100, description="Most records of the latest window read for input drift."
+    )
+
     @field_validator("database_url")
     @classmethod
     def _url_has_scheme(cls, value: str) -> str:
