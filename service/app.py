@@ -14,15 +14,17 @@ import importlib
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
-from fastapi import APIRouter, FastAPI
+from fastapi import APIRouter, Depends, FastAPI
 
 from models_store.db import make_engine, make_session_factory, upgrade
 from service import __version__
 from service.api.errors import install_error_handlers
 from service.api.metrics import AppMetrics, MetricsMiddleware
 from service.config import Settings, get_settings
+from service.limits import LimitsMiddleware
 from service.schemas import ErrorResponse
 from service.scoring import VersionCache
+from service.security import authenticate_first
 
 __all__ = ["ROUTERS", "create_app"]
 
@@ -36,6 +38,8 @@ ROUTERS: list[str] = [
     "service.api.outcomes",
     "service.api.monitoring",
     "service.api.dashboard",
+    "service.api.keys",
+    "service.api.audit",
 ]
 
 DESCRIPTION = """
@@ -93,6 +97,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.version_cache = VersionCache()
     install_error_handlers(app)
     for router in _routers():
-        app.include_router(router)
+        app.include_router(router, dependencies=[Depends(authenticate_first)])
+    app.add_middleware(LimitsMiddleware, settings=settings)
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
     return app

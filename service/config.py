@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from functools import lru_cache
 
-from pydantic import Field, field_validator
+from pydantic import Field, SecretStr, field_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 __all__ = ["Settings", "get_settings"]
@@ -29,6 +29,39 @@ class Settings(BaseSettings):
     default_confidence_level: float = Field(
         0.95, gt=0.0, lt=1.0, description="Confidence level when a request gives none."
     )
+    # --- access (service/security.py) ---
+    auth_required: bool = Field(
+        True,
+        description="Every route but health, metrics and the API docs needs an API key; "
+        "`riskfit serve --no-auth` turns this off for local development on 127.0.0.1 only.",
+    )
+    api_key_pepper: SecretStr | None = Field(
+        None,
+        description="Server secret mixed into stored key hashes (HMAC-SHA256 instead of "
+        "SHA-256); changing it invalidates every existing key.",
+    )
+    # --- limits (service/limits.py) ---
+    max_body_bytes: int = Field(
+        32 * 2**20, ge=1024, description="Largest JSON (non-multipart) request body, bytes (413)."
+    )
+    max_upload_bytes: int = Field(
+        512 * 2**20, ge=1024, description="Largest multipart (CSV/Parquet) body, bytes (413)."
+    )
+    max_records_per_request: int = Field(
+        10_000, ge=1, description="Most records (scores) or outcomes in one request."
+    )
+    max_json_fit_rows: int = Field(
+        100_000, ge=1, description="Most training rows sent as JSON; larger fits go as uploads."
+    )
+    max_fit_rows: int = Field(
+        20_000_000, ge=1, description="Most training rows in one fit (uploads included)."
+    )
+    max_features: int = Field(200, ge=1, description="Most features in one spec.")
+    max_levels: int = Field(1_000, ge=2, description="Most levels of one categorical feature.")
+    max_string_length: int = Field(
+        10_000, ge=64, description="Longest string anywhere in a JSON body or a categorical cell."
+    )
+    max_json_depth: int = Field(32, ge=4, description="Deepest nesting of a JSON body.")
 
     # --- monitoring (outcomes, calibration, drift, alerts) ---
     monitor_min_outcomes: int = Field(

@@ -40,18 +40,20 @@ from sqlalchemy.orm import Session
 from models_store.audit import record
 from models_store.keys import create_key, find_key_by_hash, get_key, revoke_key, touch_key
 from models_store.orm import ApiKey, AuditEvent, ChampionChange, ModelVersion, RefitRun, RiskModel
-from service.api.deps import ANONYMOUS, ROLE_RANK, Principal
+from service.api.deps import ANONYMOUS, ROLE_RANK, Principal, SessionDep
 from service.config import Settings
 from service.errors import AuthenticationError, NotFoundError, PermissionDeniedError
 
 __all__ = [
     "KEY_PREFIX",
     "IssuedKey",
+    "authenticate_first",
     "authorize",
     "hash_key",
     "install_audit",
     "issue_key",
     "new_key",
+    "own_key_headers",
     "presented_key",
     "revoke",
 ]
@@ -177,6 +179,24 @@ def authorize(request: Request, session: Session, role: str) -> Principal:
     :class:`PermissionDeniedError` (403) naming the role needed. With ``auth_required`` off,
     every caller is an anonymous admin. Either way the session's writes are audited.
     """
+    known: Principal | None = getattr(request.state, "riskfit_principal", None)
+    if known is None:
+        known = _principal(request, session)
+        request.state.riskfit_principal = known
+    if ROLE_RANK[known.role] < ROLE_RANK[role]:
+        raise PermissionDeniedError(
+            f"{request.method} {request.url.path} needs the role {role!r} or higher; "
+            f"key {known.name!r} (id {known.key_id}) has the role {known.role!r}",
+            field="role",
+            value=known.role,
+            remedy=f"use a key with the role {role!r} or higher (roles: scorer < modeler < admin)",
+            details={"required_role": role},
+        )
+    return known
+
+
+def _principal(request: Request, session: Session) -> Principal:
+    """The caller from the presented key (401 when missing, unknown or revoked)."""
     settings: Settings = request.app.state.settings
     if not settings.auth_required:
         install_audit(session, key_id=None)
@@ -190,19 +210,31 @@ def authorize(request: Request, session: Session, role: str) -> Principal:
             remedy=f"send Authorization: Bearer <key> (or X-API-Key: <key>); {_CREATE_HINT}",
         )
     row = _known_key(session, settings, key)
-    if ROLE_RANK[row.role] < ROLE_RANK[role]:
-        raise PermissionDeniedError(
-            f"{request.method} {request.url.path} needs the role {role!r} or higher; "
-            f"key {row.prefix}... (id {row.id}) has the role {row.role!r}",
-            field="role",
-            value=row.role,
-            remedy=f"use a key with the role {role!r} or higher (roles: scorer < modeler < admin)",
-            details={"required_role": role},
-        )
     if touch_key(session=session, key=row):
         session.commit()  # last_used_at, at most once a minute per key
     install_audit(session, key_id=row.id)
     return Principal(role=row.role, key_id=row.id, name=row.name)  # type: ignore[arg-type]
+
+
+def _route_role(route: Any) -> str | None:
+    """The least role a route admits: the ``require_<role>`` among its dependencies."""
+    dependant = getattr(route, "dependant", None)
+    for dep in getattr(dependant, "dependencies", ()):
+        name = getattr(dep.call, "__name__", "")
+        if name.startswith("require_") and name[8:] in ROLE_RANK:
+            return name[8:]
+    return None
+
+
+def authenticate_first(request: Request, session: SessionDep) -> None:
+    """Router-level dependency: check the key before anything else the route depends on.
+
+    Without it a route's path lookups (``ModelDep``) could answer 404 to a caller without a
+    key, telling strangers which models exist. Routes with no role gate stay open.
+    """
+    role = _route_role(request.scope.get("route"))
+    if role is not None:
+        authorize(request, session, role)
 
 
 # --- audit hook ---------------------------------------------------------------------------
@@ -254,3 +286,21 @@ def _add_event(
 ) -> None:
     """Add an audit row to the flush in progress (``record`` itself flushes, so not here)."""
     session.add(AuditEvent(action=action, key_id=key_id, model_name=model_name, details=details))
+
+
+def own_key_headers(app: Any, *, role: str = "modeler", name: str = "demo") -> dict[str, str]:
+    """For a client inside the process (the demo): a new key, printed once, as headers.
+
+    Returns ``{}`` when ``app`` checks no keys. Needs the app's lifespan entered (the store).
+    """
+    settings: Settings = app.state.settings
+    if not settings.auth_required:
+        return {}
+    session = app.state.session_factory()
+    try:
+        issued = issue_key(session=session, settings=settings, role=role, name=name)
+        session.commit()
+    finally:
+        session.close()
+    print(f"riskfit demo: created API key id {issued.id} (role {role}) for itself: {issued.key}")
+    return {"Authorization": f"Bearer {issued.key}"}

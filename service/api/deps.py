@@ -100,16 +100,22 @@ def get_model(model: ModelName, session: SessionDep) -> RiskModel:
 ModelDep = Annotated[RiskModel, Depends(get_model)]
 
 
-def require_role(role: Role) -> Callable[[Request], Principal]:
-    """A dependency that admits callers holding ``role`` or a higher one."""
+def require_role(role: Role) -> Callable[..., Principal]:
+    """A dependency that admits callers holding ``role`` or a higher one.
 
-    def check_access(request: Request) -> Principal:
+    Checks the API key (:func:`service.security.authorize`: 401 for a missing, unknown or
+    revoked key, 403 naming the role needed) unless ``app.state.access_checker`` replaces it.
+    """
+
+    def check_access(request: Request, session: SessionDep) -> Principal:
         checker: Callable[[Request, Role], Principal] | None = getattr(
             request.app.state, "access_checker", None
         )
-        if checker is None:
-            return ANONYMOUS
-        return checker(request, role)
+        if checker is not None:
+            return checker(request, role)
+        from service.security import authorize  # security imports this module
+
+        return authorize(request, session, role)
 
     check_access.__name__ = f"require_{role}"
     return check_access

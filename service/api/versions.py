@@ -29,6 +29,7 @@ from service.api.deps import (
 from service.data_io import columns_from_rows, read_table, table_columns, training_data
 from service.errors import DataError
 from service.fitting import fit_version, needed_columns
+from service.limits import check_training_data
 from service.schemas import ErrorResponse, VersionCreate, VersionList, VersionPublic, VersionSpec
 from service.schemas.versions import _EXAMPLE_SPEC
 
@@ -141,6 +142,7 @@ async def post_version(
             offset=options.offset,
             layout=layout,
         )
+        check_training_data(settings, kinds, data.columns, data.n_obs)
         level = options.confidence_level or settings.default_confidence_level
         m, v, _ = fit_version(
             session=session,

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import sys
 from typing import Any
 
 from service.config import Settings
@@ -17,6 +18,9 @@ def register(subparsers: Any) -> None:
         "--demo", action="store_true", help="create the demo model first if the store is empty"
     )
     parser.add_argument("--log-level", default="info", help="uvicorn log level")
+    parser.add_argument(
+        "--no-auth", action="store_true", help="no API keys (local development, 127.0.0.1 only)"
+    )
     parser.set_defaults(func=run)
 
 
@@ -31,7 +35,25 @@ def settings_from_args(args: argparse.Namespace) -> Settings:
         }.items()
         if v is not None
     }
+    if getattr(args, "no_auth", False):
+        overrides["auth_required"] = False
     return Settings(**overrides)
+
+
+def no_auth_allowed(host: str) -> bool:
+    """``--no-auth`` binds only to 127.0.0.1; says so on stderr either way."""
+    if host != "127.0.0.1":
+        print(
+            f"riskfit serve: --no-auth refuses to bind to {host}; use --host 127.0.0.1",
+            file=sys.stderr,
+        )
+        return False
+    print(
+        "WARNING: riskfit serve --no-auth: no API keys are checked; every caller is an "
+        "admin. Local development on 127.0.0.1 only.",
+        file=sys.stderr,
+    )
+    return True
 
 
 def run(args: argparse.Namespace) -> int:
@@ -40,6 +62,8 @@ def run(args: argparse.Namespace) -> int:
     from service.app import create_app
 
     settings = settings_from_args(args)
+    if not settings.auth_required and not no_auth_allowed(settings.host):
+        return 2
     app = create_app(settings)
     if args.demo:
         from service.cli.demo import seed_demo_into

@@ -15,6 +15,8 @@ from typing import Any
 
 import httpx
 
+from service.security import own_key_headers
+
 __all__ = ["in_process_client"]
 
 
@@ -42,7 +44,10 @@ def in_process_client(app: Any, base_url: str = "http://in-process") -> Iterator
     loop.run_until_complete(lifespan.__aenter__())
     try:
         transport = _LoopTransport(app, loop)
-        with httpx.Client(transport=transport, base_url=base_url, timeout=120.0) as client:
+        headers = own_key_headers(app)  # a key of its own when the app checks keys
+        with httpx.Client(
+            transport=transport, base_url=base_url, timeout=120.0, headers=headers
+        ) as client:
             yield client
     finally:
         loop.run_until_complete(lifespan.__aexit__(None, None, None))

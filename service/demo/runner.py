@@ -105,6 +105,7 @@ def run_demo(
     n_train: int = 4_000,
     model: str = MODEL_NAME,
     log: Log = print,
+    api_key: str | None = None,
 ) -> DemoSummary:
     """Run the demo against ``client`` (or a new client for ``url``) and summarise it.
 
@@ -112,7 +113,9 @@ def run_demo(
     model already exists, nothing is written and the summary says so in ``skipped``.
     """
     if client is None:
-        with httpx.Client(base_url=url or "http://127.0.0.1:8000", timeout=300.0) as own:
+        headers = {"Authorization": f"Bearer {api_key}"} if api_key else {}
+        base = url or "http://127.0.0.1:8000"
+        with httpx.Client(base_url=base, timeout=300.0, headers=headers) as own:
             return run_demo(own, seed=seed, n_train=n_train, model=model, log=log)
     try:
         spec = client.get("/openapi.json")

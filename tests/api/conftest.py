@@ -91,7 +91,7 @@ def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[str
 
 @pytest.fixture
 def settings(database_url: str) -> Settings:
-    return Settings(database_url=database_url)
+    return Settings(database_url=database_url, auth_required=False)  # access: tests/security
 
 
 @pytest.fixture

@@ -12,6 +12,7 @@ import pytest
 import statsmodels.api as sm
 
 from service.app import create_app
+from service.cli.keys import create_key_in_store
 from service.config import Settings
 from service.demo import DemoError, generate_segments, run_demo, seed_database
 from service.demo.inprocess import in_process_client
@@ -106,8 +107,9 @@ def test_seed_database_then_the_url_path_against_a_live_server(tmp_path: Path) -
         Settings(database_url=f"sqlite:///{db}"), seed=SEED, n_train=N, log=lambda _: None
     )
     assert seeded.fitted_version == 1
+    key = create_key_in_store(f"sqlite:///{db}", role="modeler", name="test").key  # access
     with live_server(db) as url:
         lines: list[str] = []
-        again = run_demo(url=url, seed=SEED, n_train=N, log=lines.append)
+        again = run_demo(url=url, seed=SEED, n_train=N, log=lines.append, api_key=key)
         assert url in lines[0] and "already exists" in again.skipped[0]
         assert httpx.get(f"{url}/risk-models/water-mains").json()["champion_version"] == 1
