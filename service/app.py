@@ -38,6 +38,7 @@ ROUTERS: list[str] = [
     "service.api.outcomes",
     "service.api.monitoring",
     "service.api.dashboard",
+    "service.api.refits",
     "service.api.keys",
     "service.api.audit",
 ]

@@ -22,6 +22,7 @@ COMMANDS: list[str] = [
     "service.cli.demo",
     "service.cli.db",
     "service.cli.client",
+    "service.cli.refit",
     "service.cli.keys",
 ]
 

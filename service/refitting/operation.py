@@ -1,0 +1,275 @@
+"""Domain operation: one refit of a model — lock, data, decision, store, answer.
+
+    refuse bad requests -> (not a dry run) take the model's refit lock (409 when held)
+    -> champion + window data -> run key -> an identical earlier refit? answer it again
+    -> decide (closed test, gates) -> store run, challenger version, champion change at once
+
+Idempotency: the *run key* is SHA-256 of the request fingerprint (canonical JSON of the body
+without ``dry_run``) and the data fingerprint of the window's rows. The newest succeeded run
+with the same key is answered again (``replayed: true``, nothing new stored) when the
+champion is still the one it left (its ``champion_after``: the parent it kept, or the
+challenger it promoted); after any other champion change the refit runs afresh.
+The run key is what ``refit_run.request_fingerprint`` holds; the answer reports the request
+and data fingerprints separately.
+
+Atomicity: every write (run, version, champion change) happens in one transaction after the
+computation; a refused or failed refit writes only a ``failed`` run row with the error (not
+for dry runs, which write nothing at all). The lock is taken before the session writes, as
+:mod:`models_store.refits` requires.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from datetime import UTC, datetime
+from typing import Any
+
+import numpy as np
+from sqlalchemy.engine import Engine
+from sqlalchemy.orm import Session
+
+from models_store.champions import set_champion
+from models_store.orm import ModelVersion, RiskModel
+from models_store.refits import find_refit_run, finish_refit_run, refit_lock, start_refit_run
+from models_store.versions import add_version, require_version
+from service.errors import InvalidInputError, RiskfitError, SpecError
+from service.fitting import _references
+from service.refitting.data import RefitData, load_refit_data, require_counts
+from service.refitting.decide import Decision, decide, gate_config
+from service.schemas import VersionSpec
+from service.schemas.refits import RefitCreate
+from service.scoring import LoadedVersion, VersionCache, resolve_version
+
+__all__ = ["request_fingerprint", "run_refit"]
+
+
+def request_fingerprint(request: RefitCreate) -> str:
+    """SHA-256 of the request's canonical JSON, ``dry_run`` left out."""
+    body = request.model_dump(mode="json", exclude={"dry_run"})
+    return hashlib.sha256(json.dumps(body, sort_keys=True).encode()).hexdigest()
+
+
+def _run_key(request_fp: str, data_fp: str) -> str:
+    return hashlib.sha256(f"refit/1\n{request_fp}\n{data_fp}".encode()).hexdigest()
+
+
+def _refuse(request: RefitCreate, v: LoadedVersion | None = None) -> None:
+    if request.pool_training_data:
+        raise InvalidInputError(
+            "pool_training_data is not possible: the store keeps no training rows (a version "
+            "keeps its data fingerprint, training ranges and reference distributions only)",
+            field="pool_training_data",
+            value=True,
+            remedy="send false (the default) and widen the window, or fit a new version on "
+            "the pooled data with POST /risk-models/{model}/versions",
+        )
+    if v is not None and v.offset:
+        raise SpecError(
+            f"champion version {v.number} was fitted with the offset column {v.offset!r}; "
+            "refits of offset models are not supported",
+            field="model",
+            value=v.offset,
+            remedy="fit a new version on fresh data with POST /risk-models/{model}/versions",
+        )
+
+
+def _iso(at: datetime | None) -> str | None:
+    return None if at is None else at.astimezone(UTC).isoformat().replace("+00:00", "Z")
+
+
+def _data_dict(data: RefitData, holdout_fraction: float) -> dict[str, Any]:
+    def part(d: dict[str, Any]) -> dict[str, Any]:
+        return {k: _iso(x) if isinstance(x, datetime) else x for k, x in d.items()}
+
+    return {
+        "window": {k: _iso(x) if isinstance(x, datetime) else x for k, x in data.window.items()},
+        "n_obs": data.n_obs,
+        "n_events": data.n_events,
+        "holdout_fraction": holdout_fraction,
+        "split": "time-ordered: the holdout is the most recently scored part",
+        "development": part(data.development.describe()),
+        "holdout": part(data.holdout.describe()),
+        "scored_by_versions": data.scored_by_versions,
+        "data_fingerprint": data.fingerprint,
+        "pooled_with_training_data": False,
+    }
+
+
+def _prepare(
+    session: Session, model: RiskModel, request: RefitCreate, cache: VersionCache
+) -> tuple[LoadedVersion, RefitData]:
+    number = resolve_version(session, model, None)
+    v = cache.get(session, model, number)
+    _refuse(request, v)
+    data = load_refit_data(
+        session=session,
+        model=model,
+        champion=v,
+        since=request.since,
+        until=request.until,
+        last_n=request.last_n,
+        holdout_fraction=request.holdout_fraction,
+    )
+    cfg = gate_config(request)
+    require_counts(data, min_outcomes=cfg.min_outcomes, min_events=cfg.min_events)
+    return v, data
+
+
+def _store_version(
+    session: Session,
+    model: RiskModel,
+    parent: ModelVersion,
+    decision: Decision,
+    data: RefitData,
+    origin_details: dict[str, Any],
+    note: str,
+    key_id: int | None,
+) -> ModelVersion:
+    c = decision.challenger
+    assert c is not None
+    dev = data.development
+    ranges, refs = parent.training_ranges, parent.reference_distributions
+    if c.method == "refit":  # the feature effects now come from the new data
+        spec = {k: x for k, x in parent.spec.items() if k in VersionSpec.model_fields}
+        refs, ranges = _references(VersionSpec.model_validate(spec), dev.columns)
+    return add_version(
+        session=session,
+        model=model,
+        spec=parent.spec,
+        encoding=parent.encoding,
+        term_names=list(parent.term_names),
+        coef=[float(x) for x in c.coef],
+        cov=np.asarray(c.cov, dtype=float).tolist(),
+        fit_stats=c.fit_stats,
+        term_table=c.term_table,
+        method="mle",
+        options={**parent.options, "warnings": list(c.fit.warnings)},
+        training_ranges=ranges,
+        reference_distributions=refs,
+        data_fingerprint=data.fingerprint,
+        n_obs=dev.n_obs,
+        n_events=float(dev.n_events),
+        parent_number=parent.number,
+        origin=c.method,
+        origin_details=origin_details,
+        note=note,
+        created_by_key_id=key_id,
+    )
+
+
+def _evaluate(
+    model: RiskModel, request: RefitCreate, v: LoadedVersion, data: RefitData, level: float
+) -> tuple[LoadedVersion, RefitData, Decision, dict[str, Any]]:
+    decision = decide(request, data, v, level)
+    answer: dict[str, Any] = {
+        "model": model.name,
+        "refit_id": None,
+        "dry_run": request.dry_run,
+        "replayed": False,
+        **decision.body,
+        "promoted": False,
+        "version_written": False,
+        "challenger_version": None,
+        "champion_before": v.number,
+        "champion_after": v.number,
+        "data": _data_dict(data, request.holdout_fraction),
+        "request_fingerprint": request_fingerprint(request),
+        "decided_at": _iso(datetime.now(UTC)),
+    }
+    return v, data, decision, answer
+
+
+def _commit(
+    session: Session,
+    model: RiskModel,
+    request: RefitCreate,
+    run_key: str,
+    evaluated: tuple[LoadedVersion, RefitData, Decision, dict[str, Any]],
+    key_id: int | None,
+) -> dict[str, Any]:
+    v, data, decision, answer = evaluated
+    run = start_refit_run(session=session, model=model, request_fingerprint=run_key, key_id=key_id)
+    answer["refit_id"] = run.id
+    if decision.challenger is None:
+        answer["reasons"].append("nothing was written but this refit's record")
+    else:
+        parent = require_version(session=session, model=model, number=v.number)
+        details = {
+            "refit_id": run.id,
+            "decision": answer["decision"],
+            "reasons": answer["reasons"],
+            "data": answer["data"],
+            "closed_test": answer["closed_test"],
+            "gates": answer["gates"],
+            "request_fingerprint": answer["request_fingerprint"],
+        }
+        version = _store_version(
+            session, model, parent, decision, data, details, request.note or "", key_id
+        )
+        answer.update(version_written=True, challenger_version=version.number)
+        if decision.promote:
+            reason = f"refit {run.id}: " + answer["reasons"][-1]
+            set_champion(
+                session=session, model=model, number=version.number, reason=reason, key_id=key_id
+            )
+            answer.update(promoted=True, champion_after=version.number)
+    finish_refit_run(session=session, run=run, status="succeeded", result=answer)
+    session.commit()
+    return answer
+
+
+def _record_failure(
+    session: Session, model_id: int, run_key: str, exc: RiskfitError, key_id: int | None
+) -> None:
+    session.rollback()
+    model = session.get(RiskModel, model_id)
+    if model is None:
+        return
+    run = start_refit_run(session=session, model=model, request_fingerprint=run_key, key_id=key_id)
+    finish_refit_run(session=session, run=run, status="failed", result={"error": exc.to_dict()})
+    session.commit()
+
+
+def run_refit(
+    *,
+    session: Session,
+    engine: Engine,
+    model: RiskModel,
+    request: RefitCreate,
+    cache: VersionCache,
+    confidence_level: float,
+    key_id: int | None = None,
+) -> dict[str, Any]:
+    """Refit ``model`` as ``request`` says; returns the JSON-ready decision (module docstring).
+
+    Raises :class:`RefitInProgressError` (409) while another refit of the model runs,
+    :class:`NotEnoughOutcomesError` (422, with counts), :class:`InvalidInputError` (422).
+    """
+    _refuse(request)
+    if request.dry_run:
+        v, data = _prepare(session, model, request, cache)
+        return _evaluate(model, request, v, data, confidence_level)[3]
+    model_id = model.id
+    session.rollback()  # end the read transaction: the lock takes its own (models_store.refits)
+    with refit_lock(engine=engine, model_id=model_id):
+        model = session.get_one(RiskModel, model_id)
+        run_key = request_fingerprint(request)
+        try:
+            v, data = _prepare(session, model, request, cache)
+            run_key = _run_key(run_key, data.fingerprint)
+            earlier = find_refit_run(session=session, model=model, request_fingerprint=run_key)
+            if (
+                earlier is not None
+                and earlier.status == "succeeded"
+                and earlier.result.get("champion_after") == v.number
+            ):
+                return {**earlier.result, "replayed": True}
+            evaluated = _evaluate(model, request, v, data, confidence_level)
+            return _commit(session, model, request, run_key, evaluated, key_id)
+        except RiskfitError as exc:
+            _record_failure(session, model_id, run_key, exc, key_id)
+            raise
+        except BaseException:
+            session.rollback()  # before the lock's own transaction releases it (SQLite)
+            raise
