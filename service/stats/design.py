@@ -36,7 +36,16 @@ from .columns import get_column, labels, numbers
 from .design_spec import check_interactions, check_spec
 from .splines import knots_at_quantiles, spline_basis
 
-__all__ = ["Design", "EncodedFeature", "Encoding", "FeatureKind", "design_matrix", "learn_encoding"]
+__all__ = [
+    "Design",
+    "EncodedFeature",
+    "Encoding",
+    "FeatureFacts",
+    "FeatureKind",
+    "design_matrix",
+    "encoding_from_facts",
+    "learn_encoding",
+]
 
 FeatureKind = Literal["numeric", "categorical", "spline"]
 Columns = Mapping[str, np.ndarray | Sequence[Any]]
@@ -150,9 +159,14 @@ def _assemble(feats: tuple[EncodedFeature, ...], inter: tuple[tuple[str, str], .
 
 
 def _learn_categorical(item: dict[str, Any], col: Any, prefix: str, i: int) -> EncodedFeature:
+    seen = sorted(set(labels(col, item["name"], prefix).tolist()))
+    return _categorical_from_seen(item, seen, prefix, i)
+
+
+def _categorical_from_seen(
+    item: dict[str, Any], seen: list[str], prefix: str, i: int
+) -> EncodedFeature:
     name = item["name"]
-    values = labels(col, name, prefix)
-    seen = sorted(set(values.tolist()))
     levels = item["levels"] or seen
     unknown = sorted(set(seen) - set(levels))
     if unknown:
@@ -190,21 +204,75 @@ def _learn_numeric(item: dict[str, Any], col: Any, prefix: str, i: int) -> Encod
     knots: tuple[float, ...] = ()
     if item["kind"] == "spline":
         knots = knots_at_quantiles(x, item["knot_quantiles"])
-        if len(knots) < 3:
-            raise DataError(
-                f"feature {name!r} has too few distinct values for a spline",
-                field=f"{prefix}.{name}",
-                value=f"{np.unique(x).size} distinct values",
-                remedy=f"use fewer knots in spec.features[{i}].knots or make it numeric",
-            )
+    distinct = f"{np.unique(x).size} distinct values" if len(knots) < 3 else ""
+    return _numeric_from_facts(
+        item,
+        FeatureFacts(knots=knots, minimum=float(raw.min()), maximum=float(raw.max())),
+        prefix,
+        i,
+        distinct,
+    )
+
+
+def _numeric_from_facts(
+    item: dict[str, Any], facts: FeatureFacts, prefix: str, i: int, distinct: str
+) -> EncodedFeature:
+    name = item["name"]
+    if item["kind"] == "spline" and len(facts.knots) < 3:
+        raise DataError(
+            f"feature {name!r} has too few distinct values for a spline",
+            field=f"{prefix}.{name}",
+            value=distinct,
+            remedy=f"use fewer knots in spec.features[{i}].knots or make it numeric",
+        )
     return EncodedFeature(
         name,
         item["kind"],
         item["transform"],
-        knots=knots,
-        minimum=float(raw.min()),
-        maximum=float(raw.max()),
+        knots=facts.knots,
+        minimum=facts.minimum,
+        maximum=facts.maximum,
     )
+
+
+@dataclass(frozen=True)
+class FeatureFacts:
+    """What learning one feature needs, however it was gathered (in memory or streamed).
+
+    Categorical: ``levels``, the distinct values seen, sorted as strings. Numeric and
+    spline: the raw ``minimum`` and ``maximum``; spline: ``knots``, the distinct values of
+    ``np.quantile`` (linear) at the spec's knot quantiles on the transformed scale.
+    """
+
+    levels: tuple[str, ...] = ()
+    minimum: float | None = None
+    maximum: float | None = None
+    knots: tuple[float, ...] = ()
+
+
+def encoding_from_facts(
+    spec: Sequence[Mapping[str, Any]],
+    facts: Mapping[str, FeatureFacts],
+    interactions: Sequence[Sequence[str]] = (),
+    *,
+    prefix: str = "data.columns",
+) -> Encoding:
+    """:func:`learn_encoding` from pre-gathered facts per feature (e.g. a streaming pass).
+
+    Applies the same checks (unknown and absent levels, reference, spline knots) and gives
+    the same :class:`Encoding` as :func:`learn_encoding` on the full columns.
+    """
+    items = check_spec(spec)
+    inter = check_interactions(interactions, [it["name"] for it in items])
+    feats = []
+    for i, item in enumerate(items):
+        f = facts[item["name"]]
+        if item["kind"] == "categorical":
+            feats.append(_categorical_from_seen(item, list(f.levels), prefix, i))
+        else:
+            distinct = f"{len(f.knots)} distinct knot values"
+            feats.append(_numeric_from_facts(item, f, prefix, i, distinct))
+    return _assemble(tuple(feats), inter)
 
 
 def learn_encoding(
@@ -233,7 +301,9 @@ def _feature_columns(
 ) -> tuple[np.ndarray, np.ndarray | None]:
     """(n, k) columns of one feature and its extrapolation mask (None for categorical)."""
     if f.kind == "categorical":
-        values = labels(col, f.name, prefix)
+        # a fixed-width text array cannot hold a missing value: no per-cell check needed
+        text = isinstance(col, np.ndarray) and col.dtype.kind == "U"
+        values = col if text else labels(col, f.name, prefix)
         uniq, inv = np.unique(values.astype(str), return_inverse=True)
         index = {lv: j for j, lv in enumerate(f.levels)}
         for u in uniq:
