@@ -92,11 +92,13 @@ def _body(args: argparse.Namespace) -> dict[str, Any]:
 def summary(model: str, answer: dict[str, Any]) -> list[str]:
     """The short text for cron mail: the decision first, then the reasons."""
     before, after = answer.get("champion_before"), answer.get("champion_after")
+    new = f"version {answer.get('challenger_version')}"
+    if answer.get("dry_run"):
+        new = "a new version would be"
     head = {
         "keep": f"champion version {before} kept; no new version",
-        "promote": f"version {answer.get('challenger_version')} promoted (was {before})",
-        "hold": f"version {answer.get('challenger_version')} stored, not promoted; "
-        f"champion stays version {after}",
+        "promote": f"{new} promoted (champion was {before})",
+        "hold": f"{new} stored, not promoted; champion stays version {after}",
     }.get(str(answer.get("decision")), str(answer.get("decision")))
     flags = [
         f
