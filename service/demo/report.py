@@ -9,7 +9,14 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["describe_report", "fit_table", "riskiest_table"]
+__all__ = [
+    "calibration_lines",
+    "describe_report",
+    "drift_lines",
+    "fit_table",
+    "refit_lines",
+    "riskiest_table",
+]
 
 
 def fit_table(term_table: Mapping[str, Any], truth: Mapping[str, float]) -> list[str]:
@@ -91,3 +98,91 @@ def _scalar(value: Any) -> str:
     if isinstance(value, float) and math.isfinite(value):
         return f"{value:.4g}"
     return str(value)
+
+
+def calibration_lines(body: Mapping[str, Any]) -> list[str]:
+    """The calibration report's headline measures, each with its interval or test."""
+    counts = body.get("counts", {})
+    n, events = counts.get("n", "?"), counts.get("events", "?")
+    lines = [f"{n} scored segments with an outcome, {events} breaks"]
+    if body.get("status") != "ok" or not body.get("measures"):
+        return [*lines, f"{body.get('message', 'no measures')} {body.get('remedy', '')}".strip()]
+    m = body["measures"]
+    picks = (
+        ("observed / expected", m.get("observed_expected"), "ratio"),
+        ("calibration-in-the-large", m.get("calibration_in_the_large"), "estimate"),
+        ("calibration slope", m.get("calibration_slope"), "estimate"),
+        ("c-statistic (AUC)", m.get("auc"), "auc"),
+    )
+    for label, measure, key in picks:
+        if measure and isinstance(measure.get(key), float | int):
+            lines.append(f"{label}: {_interval(measure, key)}")
+    scores = m.get("probability_scores") or {}
+    if "brier" in scores:
+        scaled = _scalar(scores.get("scaled_brier"))
+        lines.append(f"Brier score: {_scalar(scores['brier'])} (scaled {scaled})")
+    for label, name, stat in (
+        ("Hosmer-Lemeshow", "hosmer_lemeshow", "statistic"),
+        ("Spiegelhalter", "spiegelhalter", "z"),
+    ):
+        test = m.get(name) or {}
+        if stat in test:
+            lines.append(
+                f"{label}: {stat} {_scalar(test[stat])}, p = {_scalar(test.get('p_value'))}"
+            )
+    return lines
+
+
+def drift_lines(body: Mapping[str, Any]) -> list[str]:
+    """Observed/expected per window, the CUSUM's state and the alert conditions found."""
+    lines: list[str] = []
+    windows = body.get("windows", {})
+    ratios = [
+        w["observed_expected"]["ratio"]
+        for w in windows.get("items", [])
+        if isinstance(w.get("observed_expected"), Mapping) and "ratio" in w["observed_expected"]
+    ]
+    if ratios:
+        size = f"{windows.get('size', '')} {windows.get('unit', '')}".strip()
+        lines.append(
+            f"observed / expected by window of {size}: " + ", ".join(f"{r:.2f}" for r in ratios)
+        )
+    for side in ("up", "down"):
+        cusum = body.get("cusum", {}).get(side)
+        if isinstance(cusum, Mapping):
+            signals = cusum.get("signals") or []
+            first = cusum.get("first_signal")
+            when = "no signal" if first is None else f"first signal at record {first}"
+            lines.append(
+                f"CUSUM {side} (odds ratio {_scalar(cusum.get('odds_ratio'))}, limit h = "
+                f"{_scalar(cusum.get('h'))}): {len(signals)} signal(s), {when}"
+            )
+    features = body.get("input_drift", {}).get("features", [])
+    psi = [f"{f['feature']} {_scalar(f['psi'])}" for f in features if "psi" in f]
+    if psi:
+        lines.append("input drift (PSI): " + ", ".join(psi))
+    conditions = body.get("alerts", {}).get("conditions", [])
+    measures = sorted({c.get("measure", "?") for c in conditions})
+    lines.append(
+        f"alert conditions: {len(conditions)}" + (f" ({', '.join(measures)})" if measures else "")
+    )
+    return lines or describe_report(body)
+
+
+def refit_lines(body: Mapping[str, Any]) -> list[str]:
+    """The refit decision: method chosen, what happened to the champion, and why."""
+    if "decision" not in body:
+        return describe_report(body)
+    lines = [
+        f"closed test chose: {body.get('method_chosen')}; decision: {body['decision']} "
+        f"(champion version {body.get('champion_before')} -> {body.get('champion_after')})"
+    ]
+    lines.extend(f"- {reason}" for reason in body.get("reasons", []))
+    return lines
+
+
+def _interval(measure: Mapping[str, Any], key: str) -> str:
+    text = _scalar(measure[key])
+    if "ci_lower" in measure and "ci_upper" in measure:
+        text += f" [{_scalar(measure['ci_lower'])}, {_scalar(measure['ci_upper'])}]"
+    return text

@@ -27,7 +27,13 @@ import numpy as np
 
 from service.config import Settings
 from service.demo.inprocess import in_process_client
-from service.demo.report import describe_report, fit_table, riskiest_table
+from service.demo.report import (
+    calibration_lines,
+    drift_lines,
+    fit_table,
+    refit_lines,
+    riskiest_table,
+)
 from service.demo.scenario import (
     DEFAULT_SEED,
     FEATURES,
@@ -42,6 +48,7 @@ __all__ = ["DemoError", "DemoSummary", "run_demo", "seed_database"]
 
 Log = Callable[[str], None]
 BATCH = 1_000
+RETRY_PAUSES = (1.0, 3.0)  # seconds before the second and third attempt
 
 
 class DemoError(RuntimeError):
@@ -82,11 +89,18 @@ class _Run:
         return (method.lower(), _shape(path)) in self.paths
 
     def call(self, method: str, path: str, **kwargs: Any) -> dict[str, Any]:
-        response = self.client.request(method, path.format(model=self.model), **kwargs)
+        """One request; a 503 (store busy) is retried after a pause, as its remedy says."""
+        url = path.format(model=self.model)
+        response = self.client.request(method, url, **kwargs)
+        for pause in RETRY_PAUSES:
+            if response.status_code != 503:
+                break
+            self.log(f"   the service is busy (503); retrying in {pause:.0f} s")
+            time.sleep(pause)
+            response = self.client.request(method, url, **kwargs)
         if response.status_code >= 400:
             raise DemoError(
-                f"{method} {path.format(model=self.model)} answered {response.status_code}: "
-                f"{response.text[:500]}"
+                f"{method} {url} answered {response.status_code}: {response.text[:500]}"
             )
         body: dict[str, Any] = response.json()
         return body
@@ -132,6 +146,12 @@ def run_demo(
         f"(invented data drawn by seeded code, seed {seed}; model {model!r})"
     )
     existing = client.get(f"/risk-models/{model}")
+    if existing.status_code in (401, 403):
+        raise DemoError(
+            f"{client.base_url} needs an API key with the modeler role "
+            f"(answered {existing.status_code}: {existing.text[:300]}); pass one as api_key "
+            "(`riskfit demo --api-key` or RISKFIT_API_KEY)"
+        )
     if existing.status_code == 200:
         body = existing.json()
         reason = (
@@ -217,25 +237,30 @@ def _outcomes(run: _Run, segments: Mapping[str, np.ndarray]) -> None:
     if not run.offers("POST", path):
         run.skip("POST", path, "joining the observed breaks to their scores")
         return
-    sent = 0
+    sent, accepted = 0, 0
     for rows in _outcome_batches(segments):
-        run.call("POST", path, json={"outcomes": rows})
+        body = run.call("POST", path, json={"outcomes": rows})
         sent += len(rows)
-    run.log(f"   sent {sent} outcomes; each joins the score with the same key")
+        accepted += int(body.get("counts", {}).get("accepted", 0))
+    run.log(f"   sent {sent} outcomes by key; {accepted} joined their scores")
     run.facts.update(n_outcomes=sent)
     run.steps.append("outcomes")
 
 
 def _reports(run: _Run) -> None:
     run.log("\n4. How well does version 1 describe year two?")
-    for name, what in (("calibration", "calibration report"), ("drift", "drift report")):
+    reports = (
+        ("calibration", "calibration report", calibration_lines),
+        ("drift", "drift report", drift_lines),
+    )
+    for name, what, describe in reports:
         path = f"/risk-models/{{model}}/{name}"
         if not run.offers("GET", path):
             run.skip("GET", path, what)
             continue
         body = run.call("GET", path)
         run.log(f"   {what}:")
-        for line in describe_report(body):
+        for line in describe(body):
             run.log("     " + line)
         run.facts[name] = body
         run.steps.append(name)
@@ -248,7 +273,7 @@ def _refit(run: _Run) -> None:
         run.skip("POST", path, "scheduled refit")
         return
     body = run.call("POST", path, json={"method": "auto", "promote": "if-better"})
-    for line in describe_report(body):
+    for line in refit_lines(body):
         run.log("   " + line)
     run.facts["refit"] = body
     run.steps.append("refit")

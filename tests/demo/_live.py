@@ -7,7 +7,6 @@ import threading
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
-from pathlib import Path
 
 import uvicorn
 
@@ -24,10 +23,10 @@ def free_port() -> int:
 
 
 @contextmanager
-def live_server(db_file: Path, *, start_timeout: float = 30.0) -> Iterator[str]:
-    """Serve a fresh app on ``db_file``; yields its base URL; stops the server on exit."""
+def live_server(settings: Settings, *, start_timeout: float = 30.0) -> Iterator[str]:
+    """Serve an app built from ``settings``; yields its base URL; stops the server on exit."""
     port = free_port()
-    app = create_app(Settings(database_url=f"sqlite:///{db_file}"))
+    app = create_app(settings)
     server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="error"))
     thread = threading.Thread(target=server.run, daemon=True)
     thread.start()

@@ -106,7 +106,7 @@ def _healthcheck_argv() -> list[str]:
 
 @pytest.fixture
 def live_port(tmp_path: Path) -> Iterator[int]:
-    with live_server(tmp_path / "riskfit.db") as url:
+    with live_server(Settings(database_url=f"sqlite:///{tmp_path / 'riskfit.db'}")) as url:
         yield int(url.rsplit(":", 1)[1])
 
 
