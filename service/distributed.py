@@ -1,0 +1,349 @@
+"""Fit on a Dask cluster: partitions compute sufficient statistics, the client steps.
+
+Each Newton iteration of :mod:`service.stats.newton` needs, at the current ``coef``, the sums
+``loglik``, ``score = X'(w (y - mu))`` and ``info = X'WX`` (and for Firth's method the
+hat-weighted adjustment ``X'(h (1/2 - mu))`` with ``h_i = w_i mu_i (1 - mu_i) x_i' I^-1 x_i``,
+which needs the *total* information: the client sends the Cholesky factor of the summed
+information back to the partitions, which return p-vectors). Every partition runs the
+single-machine functions (:func:`~service.stats.likelihood.scan`,
+:func:`~service.stats.likelihood.loglik_pass`, :func:`~service.stats.firth.hat_score_adjustment`)
+on its own rows; only p-vectors and p x p matrices travel. The client sums them and runs the
+same Newton driver, so the estimate equals the single-machine fit up to the order of
+floating-point summation.
+
+A partition is any picklable zero-argument callable that returns a block source *on the
+worker* (e.g. :class:`FilePartition`: a Parquet file or row-group range the workers can
+read). With ``persist=True`` (default) each partition is loaded once into worker memory
+(``client.submit``) and every pass runs where its rows live; with ``persist=False`` each
+pass re-reads the partition (data larger than the cluster's memory).
+
+The separation check of maximum likelihood (a linear programme over all rows) runs only
+where the single-machine engine runs it: for small data or, when Newton shows the
+divergence signature, up to 2 million cells; only then are rows gathered to the client.
+
+Dask is optional: ``pip install 'riskfit[distributed]'``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable, Iterator, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from scipy.linalg import LinAlgError, cho_factor, cho_solve, cholesky
+from scipy.special import logit
+
+from service.errors import RankDeficientError, SpecError
+from service.stats.blocks import Block, BlockSource, sub_blocks
+from service.stats.diagnostics import check_counts, check_rank, check_separation
+from service.stats.firth import half_logdet, hat_score_adjustment
+from service.stats.fit import LogisticFit, Method, _options, _start_totals
+from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
+from service.stats.newton import NewtonResult, Objective, State, newton
+
+__all__ = ["DaskEngine", "FilePartition", "connect", "file_partitions", "fit_logistic_dask"]
+
+Partition = Callable[[], BlockSource]
+EXTRA = "distributed"
+
+
+def _require_dask() -> Any:
+    try:
+        import dask.distributed as dd
+    except ImportError as exc:  # pragma: no cover - exercised only without the extra
+        raise SpecError(
+            "the dask engine needs the optional dependency dask.distributed",
+            field="engine",
+            value="dask",
+            remedy=f"pip install 'riskfit[{EXTRA}]', or use the local engine",
+        ) from exc
+    return dd
+
+
+def connect(address: str) -> Any:
+    """A ``dask.distributed.Client`` for the scheduler at ``address`` (``tcp://host:8786``)."""
+    dd = _require_dask()
+    try:
+        return dd.Client(address, timeout="10s", set_as_default=False)
+    except (OSError, TimeoutError) as exc:
+        raise SpecError(
+            f"no Dask scheduler answers at {address}",
+            field="scheduler",
+            value=address,
+            remedy="start one (dask scheduler; dask worker ADDRESS) or fix the address",
+        ) from exc
+
+
+@dataclass(frozen=True)
+class FilePartition:
+    """Rows of one Parquet/CSV file read on the worker through the encoding (picklable)."""
+
+    path: str
+    encoding: dict[str, Any]
+    outcome: str
+    weights: str | None = None
+    offset: str | None = None
+    batch_rows: int = 65_536
+
+    def __call__(self) -> BlockSource:
+        from service.sources.blocks import file_blocks
+        from service.stats.design import Encoding
+
+        enc = Encoding.from_dict(self.encoding)
+        return file_blocks(self.path, enc, self.outcome, self.weights, self.offset, self.batch_rows)
+
+
+def file_partitions(
+    path: str, encoding: dict[str, Any], outcome: str, **kw: Any
+) -> list[FilePartition]:
+    """One partition per data file of ``path`` (a file, or the Parquet/CSV files of a dir)."""
+    from pathlib import Path
+
+    p = Path(path)
+    data = (".parquet", ".csv")
+    files = (
+        sorted(str(f) for f in p.iterdir() if f.name.lower().endswith(data))
+        if p.is_dir()
+        else [str(p)]
+    )
+    return [FilePartition(f, encoding, outcome, **kw) for f in files]
+
+
+# --- work done on the workers (module-level functions: picklable) ---
+
+
+def _source(part: Any, keep: Sequence[int] | None) -> BlockSource:
+    blocks: BlockSource = part() if callable(part) else (lambda: iter(part))
+    return blocks if keep is None else sub_blocks(blocks, keep)
+
+
+def _load(part: Partition) -> list[Block]:
+    return list(part()())
+
+
+def _scan(part: Any, p: int, names: tuple[str, ...]) -> DataSummary:
+    return scan(_source(part, None), p, names)
+
+
+def _totals(part: Any, keep: Sequence[int] | None, coef: np.ndarray, want: bool) -> Totals:
+    return loglik_pass(_source(part, keep), coef, want_info=want)
+
+
+def _hat(part: Any, keep: Sequence[int] | None, coef: np.ndarray, chol: np.ndarray) -> np.ndarray:
+    return hat_score_adjustment(_source(part, keep), coef, chol)[0]
+
+
+def _rows(part: Any) -> list[Block]:
+    return list(_source(part, None)())
+
+
+class DaskEngine:
+    """Partitions on a cluster and the reductions over them."""
+
+    def __init__(self, client: Any, partitions: Sequence[Partition], persist: bool = True):
+        if not partitions:
+            raise SpecError(
+                "no partitions to fit on",
+                field="data.path",
+                value=[],
+                remedy="point at a file or a non-empty directory",
+            )
+        self.client = client
+        self.parts: list[Any] = (
+            [client.submit(_load, part, pure=False) for part in partitions]
+            if persist
+            else list(partitions)
+        )
+
+    def _map(self, fn: Callable[..., Any], *args: Any) -> list[Any]:
+        futures = [self.client.submit(fn, part, *args, pure=False) for part in self.parts]
+        return list(self.client.gather(futures))
+
+    def scan(self, p: int, names: tuple[str, ...]) -> DataSummary:
+        parts: list[DataSummary] = self._map(_scan, p, names)
+        return DataSummary(
+            sum(s.n_obs for s in parts),
+            sum(s.n_positive for s in parts),
+            float(sum(s.sum_weights for s in parts)),
+            float(sum(s.n_events for s in parts)),
+            any(s.has_offset for s in parts),
+            sum((s.xtwx for s in parts), np.zeros_like(parts[0].xtwx)),
+            sum((s.xtw for s in parts), np.zeros_like(parts[0].xtw)),
+            sum((s.xtwy for s in parts), np.zeros_like(parts[0].xtwy)),
+        )
+
+    def totals(self, keep: Sequence[int] | None, coef: np.ndarray, want: bool = True) -> Totals:
+        parts: list[Totals] = self._map(_totals, keep, coef, want)
+        return Totals(
+            float(sum(t.loglik for t in parts)),
+            sum((t.score for t in parts), np.zeros_like(coef)),
+            sum((t.info for t in parts), np.zeros_like(parts[0].info)),
+            sum(t.n_extreme for t in parts),
+        )
+
+    def hat(self, keep: Sequence[int] | None, coef: np.ndarray, chol: np.ndarray) -> np.ndarray:
+        return sum(self._map(_hat, keep, coef, chol), np.zeros_like(coef))  # type: ignore[no-any-return]
+
+    def gathered(self) -> BlockSource:
+        """All rows at the client, fetched lazily (only the separation programme uses it)."""
+
+        def source() -> Iterator[Block]:
+            for blocks in self._map(_rows):
+                yield from blocks
+
+        return source
+
+
+def _no_local_rows() -> Iterable[Block]:
+    raise RuntimeError("the dask objective evaluates on the cluster")  # pragma: no cover
+
+
+class DaskObjective(Objective):
+    """:class:`~service.stats.newton.Objective` whose passes run on the partitions."""
+
+    def __init__(
+        self, engine: DaskEngine, keep: Sequence[int] | None, method: str, lam: float, mask: Any
+    ) -> None:
+        super().__init__(_no_local_rows, method, lam, np.asarray(mask))
+        self.engine, self.keep = engine, keep
+
+    def evaluate(self, coef: np.ndarray) -> State | None:
+        return self.from_totals(coef, self.engine.totals(self.keep, coef))
+
+    def from_totals(self, coef: np.ndarray, t: Totals) -> State | None:
+        if self.method != "firth":
+            return super().from_totals(coef, t)
+        if not np.isfinite(t.loglik):
+            return None
+        try:
+            chol = cholesky(t.info, lower=True, check_finite=False)
+        except LinAlgError:
+            return None
+        adj = self.engine.hat(self.keep, coef, chol)
+        pen = t.loglik + half_logdet(chol)
+        return State(coef, t.loglik, pen, t.score + adj, t.info, t.n_extreme)
+
+
+def _null(engine: DaskEngine, s: DataSummary, icpt: int | None, method: str) -> tuple[float, float]:
+    """(MLE, penalised) log-likelihood of the intercept-only model, as the local engine does."""
+    if icpt is None:
+        ll = engine.totals([], np.zeros(0), want=False).loglik
+        return ll, ll
+    start = np.array([logit(s.n_events / s.sum_weights)])
+    if s.has_offset:
+        obj = DaskObjective(engine, [icpt], "mle", 0.0, np.zeros(1))
+        st = obj.evaluate(start)
+        ll = (
+            newton(obj, st, np.ones(1, bool), max_iter=100, tol=1e-12).state.loglik
+            if st
+            else -np.inf
+        )
+    else:
+        ybar = s.n_events / s.sum_weights
+        ll = s.n_events * np.log(ybar) + (s.sum_weights - s.n_events) * np.log1p(-ybar)
+    if method != "firth":
+        return float(ll), float(ll)
+    fobj = DaskObjective(engine, [icpt], "firth", 0.0, np.zeros(1))
+    fst = fobj.evaluate(start)
+    pen = newton(fobj, fst, np.ones(1, bool), max_iter=100, tol=1e-12).state if fst else None
+    return float(ll), float(pen.penalized_loglik) if pen else float("nan")
+
+
+def fit_logistic_dask(
+    engine: DaskEngine,
+    *,
+    n_terms: int,
+    term_names: Sequence[str] | None = None,
+    method: Method = "mle",
+    ridge_lambda: float = 0.0,
+    intercept_index: int | None = 0,
+    max_iter: int = 100,
+    tol: float = 1e-10,
+) -> LogisticFit:
+    """:func:`service.stats.fit.fit_logistic_blocks` with every pass run on the cluster."""
+    names = _options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
+    p = n_terms
+    summary = engine.scan(p, names)
+    check_counts(summary, p)
+    if method != "ridge" or ridge_lambda == 0:
+        check_rank(summary.xtwx, names)
+    mask = np.ones(p)
+    if intercept_index is not None:
+        mask[intercept_index] = 0.0
+    obj = DaskObjective(engine, None, method, ridge_lambda, mask)
+    coef0 = np.zeros(p)
+    if intercept_index is not None:
+        coef0[intercept_index] = logit(summary.n_events / summary.sum_weights)
+    if summary.has_offset:
+        state0 = obj.evaluate(coef0)
+    else:
+        state0 = obj.from_totals(coef0, _start_totals(summary, coef0, intercept_index))
+    if state0 is None:
+        raise RankDeficientError(
+            "the information matrix is singular at the start",
+            field="X",
+            value=list(names),
+            remedy="remove redundant terms",
+            details={"terms": list(names)},
+        )
+    res = newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
+    return _finish(engine, summary, res, names, method, ridge_lambda, intercept_index)
+
+
+def _finish(
+    engine: DaskEngine,
+    summary: DataSummary,
+    res: NewtonResult,
+    names: tuple[str, ...],
+    method: str,
+    ridge_lambda: float,
+    intercept_index: int | None,
+) -> LogisticFit:
+    st = res.state
+    p = st.coef.shape[0]
+    try:
+        cov = cho_solve(cho_factor(st.info, lower=True), np.eye(p))
+    except np.linalg.LinAlgError:
+        cov = np.full((p, p), np.inf)
+    cov = 0.5 * (cov + cov.T)
+    se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    if method == "mle":
+        suspicious = not res.converged or st.n_extreme > 0
+        check_separation(
+            engine.gathered(), summary, st.coef, se, names, intercept_index, suspicious=suspicious
+        )
+    stop = res.stop_reason
+    warnings: list[str] = []
+    if not res.converged:
+        stop += '; try a larger max_iter, or method="firth" / "ridge" if estimates diverge'
+        warnings.append("not converged: " + stop)
+    if st.n_extreme:
+        warnings.append(f"{st.n_extreme} fitted probabilities are numerically 0 or 1")
+    null_ll, null_pen = _null(engine, summary, intercept_index, method)
+    ll = st.loglik
+    return LogisticFit(
+        term_names=names,
+        coef=st.coef,
+        cov=cov,
+        std_error=se,
+        loglik=ll,
+        penalized_loglik=st.penalized_loglik,
+        null_loglik=null_ll,
+        deviance=-2.0 * ll,
+        null_deviance=-2.0 * null_ll,
+        n_obs=summary.n_obs,
+        sum_weights=summary.sum_weights,
+        n_events=summary.n_events,
+        method=method,
+        ridge_lambda=float(ridge_lambda),
+        converged=res.converged,
+        iterations=res.iterations,
+        stop_reason=stop,
+        aic=-2.0 * ll + 2.0 * p,
+        bic=-2.0 * ll + p * float(np.log(summary.sum_weights)),
+        mcfadden_r2=1.0 - ll / null_ll if null_ll < 0 else float("nan"),
+        warnings=tuple(warnings),
+        intercept_index=intercept_index,
+        null_penalized_loglik=null_pen,
+    )
