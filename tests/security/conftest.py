@@ -81,3 +81,37 @@ def content_dump(api: ApiClient) -> dict[str, Any]:
         )
         dump["api_key"] = sorted(map(repr, keys))
     return dump
+
+
+@pytest.fixture
+def limited_api(tmp_path: Path) -> Iterator[ApiClient]:
+    """Auth on, with small limits (so the catalogue's oversized requests stay small), and
+    model ``water-mains`` version 1."""
+    settings = Settings(
+        database_url=sqlite_url(tmp_path),
+        max_body_bytes=2**20,
+        max_records_per_request=500,
+        max_json_fit_rows=1600,
+        max_levels=50,
+        max_string_length=1000,
+    )
+    client = ApiClient(create_app(settings))
+    try:
+        yield client
+    finally:
+        client.close()
+
+
+@pytest.fixture
+def limited_admin(limited_api: ApiClient) -> dict[str, str]:
+    session = limited_api.app.state.session_factory()
+    try:
+        key = issue_key(
+            session=session, settings=limited_api.app.state.settings, role="admin", name="a"
+        ).key
+        session.commit()
+    finally:
+        session.close()
+    r = limited_api.post(f"/risk-models/{MODEL}/versions", json=fit_body(), headers=bearer(key))
+    assert r.status_code == 201, r.text
+    return bearer(key)
