@@ -279,7 +279,10 @@ def fit_version(
     version = add_version(
         session=session,
         model=model,
-        spec=spec.model_dump(mode="json", exclude={"note", "description"}),
+        # Only the spec itself: a JSON fit request also carries its data, which is not kept here.
+        spec=spec.model_dump(
+            mode="json", include=set(VersionSpec.model_fields) - {"note", "description"}
+        ),
         encoding=encoding.to_dict(),
         term_names=list(fit.term_names),
         coef=[float(c) for c in fit.coef],
