@@ -25,7 +25,7 @@ from typing import Any, Literal
 from matplotlib import rc_context
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter
+from matplotlib.ticker import FuncFormatter, MaxNLocator
 
 __all__ = ["PlotFormat", "drift_figure", "psi_figure", "reliability_figure", "render"]
 
@@ -202,6 +202,7 @@ def _interval_panel(
             color=ALERT,
             label="alert",
         )
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     _grid(ax)
 
 
@@ -310,9 +311,12 @@ def psi_figure(drift: dict[str, Any]) -> Figure:
         ax.invert_yaxis()
         for y, v, f in zip(ys, vals, feats, strict=True):
             ax.text(v, y, f"  {v:.3f}  (n={f['n_obs']:,})", va="center", fontsize=8, color=INK)
-        for x, name in ((t["moderate"], "0.10 moderate"), (t["major"], "0.25 major")):
-            ax.axvline(x, color=MUTED, linestyle="--", linewidth=1)
-            ax.text(x, -0.75, name, ha="center", fontsize=7.5, color=MUTED)
+        for x, style, name in (
+            (t["moderate"], "--", "moderate shift (0.10)"),
+            (t["major"], ":", "major shift (0.25)"),
+        ):
+            ax.axvline(x, color=MUTED, linestyle=style, linewidth=1, label=name)
+        ax.legend(loc="lower right", frameon=False, fontsize=8)
         ax.set_xlim(0, max([*vals, t["major"]]) * 1.35)
         ax.set(xlabel="Population stability index (unitless)")
         ax.set_title(f"Input drift against version {d['version']}'s training reference")
