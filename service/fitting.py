@@ -28,7 +28,7 @@ import hashlib
 import math
 import struct
 import time
-from collections.abc import Mapping
+from collections.abc import Callable, Iterable, Mapping
 from typing import Any
 
 import numpy as np
@@ -42,13 +42,23 @@ from service.data_io import NUMERIC_KINDS, TrainingData
 from service.errors import NonConvergenceError, SpecError
 from service.schemas import VersionSpec
 from service.stats.blocks import array_blocks
-from service.stats.design import design_matrix, learn_encoding
+from service.stats.design import Encoding, design_matrix, learn_encoding
 from service.stats.fit import LogisticFit, fit_logistic
 from service.stats.inference import drop_term_tests, global_lr_test, profile_intervals, term_table
 from service.stats.metrics import auc, brier
 from service.stats.psi import categorical_reference, numeric_reference
 
-__all__ = ["FIRST_VERSION_REASON", "data_fingerprint", "finite", "fit_version", "needed_columns"]
+__all__ = [
+    "FIRST_VERSION_REASON",
+    "data_fingerprint",
+    "fingerprint_columns",
+    "finite",
+    "fit_summary",
+    "fit_version",
+    "needed_columns",
+    "require_converged",
+    "store_version",
+]
 
 FIRST_VERSION_REASON = "first version"
 RESERVED_NAMES = frozenset({"key"})  # the record field of a client's own score id
@@ -114,19 +124,32 @@ def data_fingerprint(
         cols[weights] = data.weights
     if offset and data.offset is not None:
         cols[offset] = data.offset
+    return fingerprint_columns(data.n_obs, {k: (lambda v=v: [v]) for k, v in cols.items()})
+
+
+def fingerprint_columns(
+    n_obs: int, columns: Mapping[str, Callable[[], Iterable[np.ndarray]]]
+) -> str:
+    """The fingerprint from each column's consecutive parts (one call per column, in order).
+
+    ``columns[name]()`` yields the column's values part by part (a whole array, or the chunks
+    of a streamed file); the bytes hashed are those of :func:`data_fingerprint`.
+    """
     h = hashlib.sha256(b"riskfit-training-data/1\n")
-    h.update(struct.pack("<Q", data.n_obs))
-    for name in sorted(cols):
-        values = cols[name]
+    h.update(struct.pack("<Q", n_obs))
+    for name in sorted(columns):
         h.update(name.encode() + b"\x00")
-        if values.dtype.kind == "f":
-            h.update(b"f")
-            h.update((np.ascontiguousarray(values, dtype="<f8") + 0.0).tobytes())
-        else:
-            h.update(b"s")
-            for v in values:
-                b = str(v).encode()
-                h.update(struct.pack("<I", len(b)) + b)
+        tagged = False
+        for values in columns[name]():
+            if not tagged:
+                h.update(b"f" if values.dtype.kind == "f" else b"s")
+                tagged = True
+            if values.dtype.kind == "f":
+                h.update((np.ascontiguousarray(values, dtype="<f8") + 0.0).tobytes())
+            else:
+                for v in values:
+                    b = str(v).encode()
+                    h.update(struct.pack("<I", len(b)) + b)
     return h.hexdigest()
 
 
@@ -160,6 +183,14 @@ def _references(
 def _fit_statistics(
     fit: LogisticFit, y: np.ndarray, p: np.ndarray, weights: np.ndarray | None
 ) -> dict[str, Any]:
+    stats = fit_summary(fit)
+    stats["apparent_auc"] = finite(auc(y, p, weights))
+    stats["apparent_brier"] = finite(brier(y, p, weights))
+    return stats
+
+
+def fit_summary(fit: LogisticFit) -> dict[str, Any]:
+    """Fit statistics that need no pass over the data (all but apparent AUC and Brier)."""
     g = global_lr_test(fit)
     stats: dict[str, Any] = {
         "n_obs": fit.n_obs,
@@ -184,8 +215,6 @@ def _fit_statistics(
             "df": g.df,
             "p_value": finite(g.p_value),
         },
-        "apparent_auc": finite(auc(y, p, weights)),
-        "apparent_brier": finite(brier(y, p, weights)),
     }
     return stats
 
@@ -211,6 +240,19 @@ def _table_dict(table: Any, fit: LogisticFit) -> dict[str, Any]:
             {"name": r.name, **{k: finite(getattr(r, k)) for k in fields}} for r in table.rows
         ],
     }
+
+
+def require_converged(fit: LogisticFit, method: str) -> None:
+    """:class:`NonConvergenceError` when Newton stopped early (nothing is stored then)."""
+    if not fit.converged:
+        raise NonConvergenceError(
+            f"the fit did not converge after {fit.iterations} iterations: {fit.stop_reason}",
+            field="options.method",
+            value=method,
+            remedy="try options.method='firth' (or 'ridge' with a small ridge_lambda), fewer "
+            "levels or terms, or a larger options.max_iter",
+            details={"iterations": fit.iterations, "stop_reason": fit.stop_reason},
+        )
 
 
 def fit_version(
@@ -245,15 +287,7 @@ def fit_version(
         ridge_lambda=options.ridge_lambda,
         max_iter=options.max_iter,
     )
-    if not fit.converged:
-        raise NonConvergenceError(
-            f"the fit did not converge after {fit.iterations} iterations: {fit.stop_reason}",
-            field="options.method",
-            value=options.method,
-            remedy="try options.method='firth' (or 'ridge' with a small ridge_lambda), fewer "
-            "levels or terms, or a larger options.max_iter",
-            details={"iterations": fit.iterations, "stop_reason": fit.stop_reason},
-        )
+    require_converged(fit, options.method)
     blocks = array_blocks(X, data.y, data.weights, data.offset)
     if options.profile_intervals:
         table = profile_intervals(blocks, fit, confidence_level)
@@ -272,6 +306,39 @@ def fit_version(
     refs, ranges = _references(spec, data.columns)
     fingerprint = data_fingerprint(data, spec.outcome, options.weights, options.offset)
 
+    return store_version(
+        session=session,
+        model_name=model_name,
+        spec=spec,
+        encoding=encoding,
+        fit=fit,
+        table=_table_dict(table, fit),
+        fit_stats=fit_stats,
+        references=refs,
+        ranges=ranges,
+        fingerprint=fingerprint,
+        confidence_level=confidence_level,
+        key_id=key_id,
+    )
+
+
+def store_version(
+    *,
+    session: Session,
+    model_name: str,
+    spec: VersionSpec,
+    encoding: Encoding,
+    fit: LogisticFit,
+    table: dict[str, Any],
+    fit_stats: dict[str, Any],
+    references: dict[str, Any],
+    ranges: dict[str, Any],
+    fingerprint: str,
+    confidence_level: float,
+    key_id: int | None,
+) -> tuple[RiskModel, ModelVersion, bool]:
+    """Store a checked fit as the model's next version in one commit (first one: champion)."""
+    options = spec.options
     model = get_model(session=session, name=model_name)
     if model is None:
         model = create_model(session=session, name=model_name, description=spec.description or "")
@@ -288,7 +355,7 @@ def fit_version(
         coef=[float(c) for c in fit.coef],
         cov=np.asarray(fit.cov, dtype=float).tolist(),
         fit_stats=fit_stats,
-        term_table=_table_dict(table, fit),
+        term_table=table,
         method=fit.method,
         options={
             **options.model_dump(mode="json"),
@@ -296,7 +363,7 @@ def fit_version(
             "warnings": list(fit.warnings),
         },
         training_ranges=ranges,
-        reference_distributions=refs,
+        reference_distributions=references,
         data_fingerprint=fingerprint,
         n_obs=fit.n_obs,
         n_events=float(fit.n_events),
