@@ -5,6 +5,7 @@ here; the checks are on the files and on the installed command line.)"""
 from __future__ import annotations
 
 import re
+import shlex
 import shutil
 import subprocess
 from collections.abc import Iterator
@@ -16,8 +17,9 @@ import httpx
 import pytest
 import yaml
 
+from service.cli import build_parser
 from service.config import Settings
-from tests.deploy._commands import DEPLOY, REPO, check_riskfit_argv
+from tests.deploy._commands import DEPLOY, REPO, check_riskfit_argv, subcommands
 
 K8S = DEPLOY / "k8s"
 
@@ -197,3 +199,33 @@ def test_container_commands_are_real_riskfit_commands(where: str) -> None:
 def test_the_paths_these_files_name_exist() -> None:
     assert (REPO / "Dockerfile").is_file()
     assert Path(DEPLOY / "README.md").is_file()
+
+
+def _riskfit_commands(line: str, names: set[str]) -> list[list[str]]:
+    """``riskfit SUB ...`` argv lists in a shell line (inside ``sh -c '...'`` too)."""
+    lexer = shlex.shlex(line, posix=True, punctuation_chars=True)
+    lexer.whitespace_split = True
+    tokens = list(lexer)
+    found: list[list[str]] = []
+    for i, token in enumerate(tokens):
+        if " " in token:
+            found.extend(_riskfit_commands(token, names))
+        elif Path(token).name == "riskfit" and i + 1 < len(tokens) and tokens[i + 1] in names:
+            argv = [token]
+            for rest in tokens[i + 1 :]:
+                if rest and set(rest) <= set(";&|()<>"):
+                    break
+                argv.append(rest)
+            found.append(argv)
+    return found
+
+
+def test_readme_commands_are_real_riskfit_commands() -> None:
+    text = (DEPLOY / "README.md").read_text()
+    blocks = re.findall(r"```sh\n(.*?)```", text, flags=re.S)
+    lines = [ln for b in blocks for ln in b.splitlines() if ln and not ln.startswith("#")]
+    names = set(subcommands(build_parser()))
+    commands = [argv for line in lines for argv in _riskfit_commands(line, names)]
+    assert len(commands) >= 4, commands
+    for argv in commands:
+        check_riskfit_argv(argv, f"deploy/README.md: {shlex.join(argv)}")
