@@ -18,7 +18,7 @@ live server or :func:`service.demo.inprocess.in_process_client`.
 from __future__ import annotations
 
 import time
-from collections.abc import Callable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -27,6 +27,7 @@ import numpy as np
 
 from service.config import Settings
 from service.demo.inprocess import in_process_client
+from service.demo.payloads import columns, outcome_batches, record_batches
 from service.demo.report import (
     calibration_lines,
     drift_lines,
@@ -123,8 +124,10 @@ def run_demo(
 ) -> DemoSummary:
     """Run the demo against ``client`` (or a new client for ``url``) and summarise it.
 
-    Raises :class:`DemoError` when the service refuses a step, quoting its answer. If the
-    model already exists, nothing is written and the summary says so in ``skipped``.
+    ``api_key`` is sent as ``Authorization: Bearer`` on the client made for ``url`` (a
+    ``client`` brings its own headers). Raises :class:`DemoError` when the service is not
+    there or refuses a step, quoting its answer. If the model already exists, nothing is
+    written and the summary says so in ``skipped``.
     """
     if client is None:
         headers = {"Authorization": f"Bearer {api_key}"} if api_key else {}
@@ -189,7 +192,7 @@ def _fit(run: _Run, segments: Mapping[str, np.ndarray]) -> None:
             "options": {"method": "mle", "confidence_level": 0.95},
             "note": "demo: year-one segments and breaks",
             "description": "Water-main breaks within twelve months (demo scenario)",
-            "data": {"columns": _columns(segments, (*FEATURES, "outcome"))},
+            "data": {"columns": columns(segments, (*FEATURES, "outcome"))},
         },
     )
     stats = body["fit_statistics"]
@@ -208,7 +211,7 @@ def _score(run: _Run, segments: Mapping[str, np.ndarray]) -> None:
     n = len(segments["segment_id"])
     run.log(f"\n2. Year two begins. Scoring all {n} segments with the champion:")
     scores: list[dict[str, Any]] = []
-    for rows in _record_batches(segments):
+    for rows in record_batches(segments, batch=BATCH):
         body = run.call("POST", "/risk-models/{model}/scores", json={"records": rows})
         scores.extend(body["scores"])
     probability = np.array([s["probability"] for s in scores])
@@ -238,7 +241,7 @@ def _outcomes(run: _Run, segments: Mapping[str, np.ndarray]) -> None:
         run.skip("POST", path, "joining the observed breaks to their scores")
         return
     sent, accepted = 0, 0
-    for rows in _outcome_batches(segments):
+    for rows in outcome_batches(segments, batch=BATCH):
         body = run.call("POST", path, json={"outcomes": rows})
         sent += len(rows)
         accepted += int(body.get("counts", {}).get("accepted", 0))
@@ -283,34 +286,6 @@ def _shape(path: str) -> str:
     """``/risk-models/{name}/scores`` -> ``/risk-models/{}/scores`` (parameter names vary)."""
     parts = path.split("/")
     return "/".join("{}" if p.startswith("{") and p.endswith("}") else p for p in parts)
-
-
-def _columns(segments: Mapping[str, np.ndarray], names: Sequence[str]) -> dict[str, list[Any]]:
-    return {name: segments[name].tolist() for name in names}
-
-
-def _keys(segments: Mapping[str, np.ndarray], year: int = 2) -> list[str]:
-    return [f"{sid}/year-{year}" for sid in segments["segment_id"].tolist()]
-
-
-def _record_batches(segments: Mapping[str, np.ndarray]) -> Iterator[list[dict[str, Any]]]:
-    columns = _columns(segments, FEATURES)
-    keys = _keys(segments)
-    for start in range(0, len(keys), BATCH):
-        stop = start + BATCH
-        yield [
-            {"key": key, **{name: columns[name][start + i] for name in FEATURES}}
-            for i, key in enumerate(keys[start:stop])
-        ]
-
-
-def _outcome_batches(segments: Mapping[str, np.ndarray]) -> Iterator[list[dict[str, Any]]]:
-    keys, outcome = _keys(segments), segments["outcome"].tolist()
-    for start in range(0, len(keys), BATCH):
-        yield [
-            {"key": key, "outcome": outcome[start + i]}
-            for i, key in enumerate(keys[start : start + BATCH])
-        ]
 
 
 def seed_database(
