@@ -102,6 +102,18 @@ class Settings(BaseSettings):
         20_000, ge=100, description="Most records of the latest window read for input drift."
     )
 
+    # --- fitting from server-side files and on Dask (service/sources, service/distributed.py) ---
+    fit_data_dirs: list[str] = Field(
+        default_factory=list,
+        description="Directories whose files a fit may read by path (`data.path`, "
+        '`riskfit fit --engine local|dask`); JSON list, e.g. ["/data/risk"]. Empty: disabled.',
+    )
+    dask_schedulers: list[str] = Field(
+        default_factory=list,
+        description="Dask scheduler addresses a fit may use (`engine: dask`); the first is the "
+        "default. Empty: the dask engine is disabled.",
+    )
+
     @field_validator("database_url")
     @classmethod
     def _url_has_scheme(cls, value: str) -> str:

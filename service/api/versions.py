@@ -85,6 +85,8 @@ async def _parse_fit_request(request: Request) -> tuple[VersionSpec, dict[str, A
         table = read_table(content, filename=filename, content_type=upload_type)
         return spec, table_columns(table, needed_columns(spec)), "columns"
     body: VersionCreate = _validated(VersionCreate, await request.body())
+    if body.data.path is not None:
+        return body, {}, "path"
     if body.data.rows is not None:
         rows = columns_from_rows(body.data.rows, needed_columns(body), "data.rows")
         return body, dict(rows), "rows"
@@ -134,6 +136,8 @@ async def post_version(
     kinds = {f.name: f.kind for f in spec.features}
 
     def work() -> dict[str, Any]:
+        if layout == "path":
+            return _fit_from_path(session, settings, model, spec, who.key_id)
         data = training_data(
             raw,
             kinds=kinds,
@@ -159,6 +163,26 @@ async def post_version(
     metrics.versions_fitted.labels(model, options.method).inc()
     metrics.fit_seconds.observe(answer["fit_statistics"].get("fit_seconds", 0.0))
     return answer
+
+
+def _fit_from_path(
+    session: Any, settings: Any, model: str, body: Any, key_id: int | None
+) -> dict[str, Any]:
+    """``data.path``: stream a server-side file (service/sources), or fit on Dask."""
+    from service.sources.fit_path import fit_version_from_path
+
+    m, v, _ = fit_version_from_path(
+        session=session,
+        settings=settings,
+        model_name=model,
+        spec=VersionSpec.model_validate(body.model_dump(exclude={"data"})),
+        path=body.data.path,
+        confidence_level=body.options.confidence_level or settings.default_confidence_level,
+        engine=body.data.engine,
+        scheduler=body.data.scheduler,
+        key_id=key_id,
+    )
+    return version_public(m, v, current_champion(session=session, model=m))
 
 
 def _summary(v: ModelVersion, champion: int | None) -> dict[str, Any]:

@@ -1,6 +1,7 @@
 """``riskfit fit`` and ``riskfit score``: talk to a running riskfit over HTTP (httpx).
 
     riskfit fit --spec spec.json --data segments.csv [--model NAME] [--url URL]
+    riskfit fit --spec spec.json --data /data/segments/ --engine local|dask [--scheduler ADDR]
     riskfit score --records records.json|.csv [--model NAME] [--version N] [--url URL]
 
 Uploads show their progress on stderr; answers are printed as JSON on stdout. The exit code
@@ -65,6 +66,14 @@ def register(subparsers: Any) -> None:
     fit = subparsers.add_parser("fit", help="fit a new version on a running server")
     fit.add_argument("--spec", required=True, type=Path, help="JSON file: features, options")
     fit.add_argument("--data", required=True, type=Path, help="CSV or Parquet training data")
+    fit.add_argument(
+        "--engine",
+        choices=["upload", "local", "dask"],
+        default="upload",
+        help="upload: send the file (default); local: the server streams DATA, a path it can "
+        "read inside its fit_data_dirs; dask: the server fits DATA on a Dask cluster",
+    )
+    fit.add_argument("--scheduler", help="Dask scheduler address (one the server allows)")
     _add_common(fit)
     fit.set_defaults(func=run_fit)
     score = subparsers.add_parser("score", help="score records on a running server")
@@ -94,9 +103,25 @@ def _finish(response: Any) -> int:
     return 0 if response.is_success else 1
 
 
+def run_fit_by_path(args: argparse.Namespace) -> int:
+    """The server reads ``--data`` itself (``data.path``): nothing is uploaded."""
+    import httpx
+
+    body = json.loads(args.spec.read_text(encoding="utf-8"))
+    data: dict[str, Any] = {"path": str(args.data.absolute()), "engine": args.engine}
+    if args.scheduler:
+        data["scheduler"] = args.scheduler
+    body["data"] = data
+    with httpx.Client(base_url=args.url, timeout=args.timeout) as c:
+        response = c.post(f"/risk-models/{args.model}/versions", json=body, headers=_headers(args))
+    return _finish(response)
+
+
 def run_fit(args: argparse.Namespace) -> int:
     import httpx
 
+    if getattr(args, "engine", "upload") != "upload":
+        return run_fit_by_path(args)
     spec = args.spec.read_text(encoding="utf-8")
     size = args.data.stat().st_size
     with args.data.open("rb") as f, httpx.Client(base_url=args.url, timeout=args.timeout) as c:

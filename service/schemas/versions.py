@@ -81,15 +81,30 @@ class VersionSpec(StrictModel):
 
 
 class FitData(StrictModel):
-    """Training data: exactly one of `columns` or `rows`."""
+    """Training data: exactly one of `columns`, `rows` or `path` (a server-side file)."""
 
     columns: dict[str, list[CellValue]] | None = None
     rows: list[dict[str, CellValue]] | None = None
+    path: str | None = Field(
+        None,
+        min_length=1,
+        max_length=4096,
+        description="Parquet file or directory, or CSV file, as the server sees it; only "
+        "inside the directories of the setting fit_data_dirs. Streamed, never loaded whole.",
+    )
+    engine: Literal["local", "dask"] = Field(
+        "local", description="With `path`: stream on the server, or fit on a Dask cluster."
+    )
+    scheduler: str | None = Field(
+        None, max_length=500, description="Dask scheduler (one of the setting dask_schedulers)."
+    )
 
     @model_validator(mode="after")
     def _exactly_one(self) -> FitData:
-        if (self.columns is None) == (self.rows is None):
-            raise ValueError("give exactly one of data.columns or data.rows")
+        if sum(v is not None for v in (self.columns, self.rows, self.path)) != 1:
+            raise ValueError("give exactly one of data.columns, data.rows or data.path")
+        if self.path is None and (self.engine != "local" or self.scheduler is not None):
+            raise ValueError("data.engine and data.scheduler apply only with data.path")
         return self
 
 
