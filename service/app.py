@@ -91,6 +91,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         responses={
             404: {"model": ErrorResponse, "description": "Unknown model, version or path."},
             422: {"model": ErrorResponse, "description": "Invalid input or no valid fit."},
+            401: {"model": ErrorResponse, "description": "No, unknown or revoked API key."},
+            403: {"model": ErrorResponse, "description": "The key lacks the role needed."},
+            413: {"model": ErrorResponse, "description": "Request body over the size limit."},
         },
     )
     app.state.settings = settings

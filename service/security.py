@@ -42,7 +42,12 @@ from models_store.keys import create_key, find_key_by_hash, get_key, revoke_key,
 from models_store.orm import ApiKey, AuditEvent, ChampionChange, ModelVersion, RefitRun, RiskModel
 from service.api.deps import ANONYMOUS, ROLE_RANK, Principal, SessionDep
 from service.config import Settings
-from service.errors import AuthenticationError, NotFoundError, PermissionDeniedError
+from service.errors import (
+    AuthenticationError,
+    ConflictError,
+    NotFoundError,
+    PermissionDeniedError,
+)
 
 __all__ = [
     "KEY_PREFIX",
@@ -121,6 +126,13 @@ def revoke(*, session: Session, key_id: int, by_key_id: int | None = None) -> Ap
             field="key_id",
             value=key_id,
             remedy="list the keys (GET /api-keys or `riskfit keys list`) for their ids",
+        )
+    if by_key_id is not None and by_key_id == key_id:
+        raise ConflictError(
+            f"API key {key_id} cannot revoke itself",
+            field="key_id",
+            value=key_id,
+            remedy="revoke it with another admin key, or with `riskfit keys revoke`",
         )
     was_active = existing.revoked_at is None
     row = revoke_key(session=session, key_id=key_id)

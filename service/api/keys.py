@@ -10,6 +10,7 @@ from fastapi import APIRouter, Path, status
 from models_store.keys import list_keys
 from models_store.orm import ApiKey
 from service.api.deps import AdminAccess, SessionDep, SettingsDep
+from service.schemas import ErrorResponse
 from service.schemas.keys import KeyCreate, KeyCreated, KeyList, KeyPublic
 from service.security import issue_key, revoke
 
@@ -52,7 +53,12 @@ def get_keys(session: SessionDep, _: AdminAccess) -> dict[str, Any]:
     return {"items": items, "count": len(items)}
 
 
-@router.delete("/{key_id}", response_model=KeyPublic, summary="Revoke an API key")
+@router.delete(
+    "/{key_id}",
+    response_model=KeyPublic,
+    summary="Revoke an API key",
+    responses={409: {"model": ErrorResponse, "description": "A key cannot revoke itself."}},
+)
 def delete_key(
     session: SessionDep,
     who: AdminAccess,
