@@ -90,3 +90,9 @@ def multipart_body(spec: dict[str, Any], data: bytes, boundary: str) -> bytes:
             b"--" + b + b"--\r\n",
         ]
     )
+
+
+def routes(client: httpx.Client) -> set[str]:
+    """Paths the server's OpenAPI document lists (to use routes other teams add as they land)."""
+    paths: dict[str, Any] = client.get("/openapi.json").json()["paths"]
+    return set(paths)
