@@ -25,7 +25,7 @@ import orjson
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from service.config import Settings
-from service.errors import LimitExceededError
+from service.errors import InvalidInputError, LimitExceededError, RiskfitError
 
 __all__ = ["LimitsMiddleware", "check_json_body", "check_training_data", "too_large"]
 
@@ -156,7 +156,14 @@ def _parse(raw: bytes) -> Any:
             remedy="flatten the request",
         ) from None
     except (ValueError, UnicodeDecodeError) as exc:
-        if isinstance(exc, json.JSONDecodeError | UnicodeDecodeError):
+        if isinstance(exc, UnicodeDecodeError):
+            raise InvalidInputError(
+                "the request body is not UTF-8 text",
+                field="body",
+                value=None,
+                remedy="send JSON encoded as UTF-8 (Content-Type: application/json)",
+            ) from None
+        if isinstance(exc, json.JSONDecodeError):
             return _NOT_JSON
         raise LimitExceededError(  # e.g. an integer of more than 4300 digits
             f"the JSON body holds a number Python will not read: {str(exc)[:120]}",
@@ -240,7 +247,7 @@ class LimitsMiddleware:
                 parsed = _parse(raw)
                 if parsed is not _NOT_JSON:
                     check_json_body(parsed, s)
-        except LimitExceededError as exc:
+        except RiskfitError as exc:
             await _answer(send, exc)
             return
         await self.app(scope, _replay(raw, receive), send)
@@ -289,7 +296,7 @@ def _replay(raw: bytes, receive: Receive) -> Receive:
     return replay
 
 
-async def _answer(send: Send, exc: LimitExceededError) -> None:
+async def _answer(send: Send, exc: RiskfitError) -> None:
     from service.api.errors import error_body, status_for
     from service.api.responses import JSONBytes
 
