@@ -3,10 +3,14 @@
     version (champion unless given) -> columns -> design_matrix -> predict (with interval)
     -> per-record warnings (extrapolation) -> optional contributions -> score log -> answer
 
+Input comes as rows (``records``: one dict per record) or as columns (``columns``: one
+list per feature, the faster layout for big batches); both become one :class:`ScoreInput`
+of raw columns, validated as arrays (never one model object per record).
+
 The score log rows are inserted in bulk and committed before the answer is built, so every
 returned ``score_id`` is in the store when the client reads it. Client keys (``key`` in a
-record) are unique per model: a repeated or already used key refuses the whole batch (409)
-and nothing is written.
+record, or the ``key`` column) are unique per model: a repeated or already used key refuses
+the whole batch (409) and nothing is written.
 
 Versions are immutable, so their decoded encoding, coefficients and covariance are cached in
 memory keyed by ``(model id, version number)``; the only per-request store read besides the
@@ -15,28 +19,47 @@ key check is the champion number (one indexed row), so a champion change takes e
 
 from __future__ import annotations
 
+import os
 import threading
-from collections.abc import Mapping, Sequence
+import time
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
+from operator import itemgetter, methodcaller
 from typing import Any
 
 import numpy as np
+import orjson
 from sqlalchemy.orm import Session
 
 from models_store.champions import current_champion
 from models_store.orm import RiskModel
-from models_store.scores import add_scores, new_score_id
 from models_store.versions import require_version
 from service.data_io import FieldNamer, coerce_column, columns_from_rows
 from service.errors import DataError, VersionNotFoundError
+from service.score_writer import ScoreLogWriter, ScoreRows
 from service.stats.design import Encoding, design_matrix
 from service.stats.predict import contributions, predict
 
-__all__ = ["CI_METHOD", "LoadedVersion", "VersionCache", "score_records"]
+__all__ = [
+    "CI_METHOD",
+    "LoadedVersion",
+    "ScoreInput",
+    "VersionCache",
+    "columns_input",
+    "new_score_ids",
+    "records_input",
+    "score_batch",
+    "score_records",
+]
 
 CI_METHOD = "wald-logit"
 KEY_FIELD = "key"
+_HEX = np.frombuffer(b"0123456789abcdef", dtype=np.uint8)
+_DASHES = (8, 13, 18, 23)
+_HEX_AT = np.array([i for i in range(36) if i not in _DASHES])
+_NO_WARNINGS: tuple[str, ...] = ()
+GROUP_COMMIT_MAX_ROWS = 1000  # bigger batches gain nothing from sharing a commit
 
 
 @dataclass(frozen=True)
@@ -51,6 +74,11 @@ class LoadedVersion:
     coef: np.ndarray
     cov: np.ndarray
     ranges: dict[str, Any]
+
+    @property
+    def inputs(self) -> list[str]:
+        """The raw columns a record must carry (features, then the offset column)."""
+        return list(self.kinds) + ([self.offset] if self.offset else [])
 
 
 class VersionCache:
@@ -100,54 +128,229 @@ def resolve_version(session: Session, model: RiskModel, version: int | None) -> 
     return champion
 
 
-def _record_field(name: str) -> FieldNamer:
-    return lambda i: f"records[{i}].{name}"
+def new_score_ids(n: int) -> list[str]:
+    """``n`` time-ordered UUIDs (version 7, RFC 9562 sec. 5.7) as 36-character text, ascending.
+
+    48 bits of Unix time in milliseconds, then 74 random bits from ``os.urandom``, made and
+    formatted in bulk with numpy. The batch is sorted, so the score log's primary-key index
+    grows at its right edge instead of taking random page splits.
+    """
+    raw = np.frombuffer(os.urandom(16 * n), dtype=np.uint8).reshape(n, 16).copy()
+    ms = time.time_ns() // 1_000_000
+    raw[:, :6] = np.frombuffer(ms.to_bytes(6, "big"), dtype=np.uint8)
+    raw[:, 6] = (raw[:, 6] & 0x0F) | 0x70
+    raw[:, 8] = (raw[:, 8] & 0x3F) | 0x80
+    raw = np.sort(raw.view("S16").ravel()).view(np.uint8).reshape(n, 16)
+    nibbles = np.empty((n, 32), dtype=np.uint8)
+    nibbles[:, 0::2] = raw >> 4
+    nibbles[:, 1::2] = raw & 0x0F
+    text = np.full((n, 36), ord("-"), dtype=np.uint8)
+    text[:, _HEX_AT] = _HEX[nibbles]
+    return text.view("S36").ravel().astype("U36").tolist()  # type: ignore[no-any-return]
 
 
-def _record_columns(
-    records: Sequence[Mapping[str, Any]], v: LoadedVersion
-) -> tuple[dict[str, np.ndarray], np.ndarray | None]:
-    names = list(v.kinds) + ([v.offset] if v.offset else [])
-    raw = columns_from_rows(records, names, "records")
-    cols = {
-        name: coerce_column(name, kind, raw[name], _record_field(name))
-        for name, kind in v.kinds.items()
-    }
-    offset = None
-    if v.offset:
-        offset = coerce_column(v.offset, "numeric", raw[v.offset], _record_field(v.offset))
-    return cols, offset
+@dataclass(frozen=True)
+class ScoreInput:
+    """Raw columns of a batch (name -> n values), client keys (None: no record has one)."""
+
+    columns: Mapping[str, Sequence[Any] | np.ndarray]
+    keys: list[str | None] | None
+    n: int
+    field: Callable[[str, int], str]  # (column, row) -> field path for errors
+    prefix: str  # "records" or "columns": the request part that holds the data
 
 
-def _keys(records: Sequence[Mapping[str, Any]]) -> list[str | None]:
-    keys: list[str | None] = []
-    for i, r in enumerate(records):
-        k = r.get(KEY_FIELD)
-        if k is not None and not isinstance(k, str):
-            k = str(int(k)) if isinstance(k, float) and k.is_integer() else str(k)
-        if k is not None and not (1 <= len(k) <= 200):
+def _key_text(value: Any, where: str) -> str | None:
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, str | int | float):
+        raise DataError(
+            "a record key must be text or a number",
+            field=where,
+            value=repr(value)[:80],
+            remedy="use a string identifier, or omit key",
+        )
+    k = value if isinstance(value, str) else _number_text(value)
+    if not 1 <= len(k) <= 200:
+        raise DataError(
+            "a record key must be 1 to 200 characters",
+            field=where,
+            value=k,
+            remedy="use a shorter identifier, or omit key",
+        )
+    return k
+
+
+def _number_text(value: float) -> str:
+    return str(int(value)) if isinstance(value, float) and value.is_integer() else str(value)
+
+
+def _keys(values: Sequence[Any], field: Callable[[int], str]) -> list[str | None] | None:
+    if values.count(None) == len(values):
+        return None
+    return [_key_text(v, field(i)) for i, v in enumerate(values)]
+
+
+def records_input(records: Sequence[Mapping[str, Any]], names: Sequence[str]) -> ScoreInput:
+    """Rows (``records[i][name]``) as columns; a record lacking a name is a missing feature."""
+    try:
+        cols: dict[str, Any] = {name: list(map(itemgetter(name), records)) for name in names}
+    except KeyError:
+        cols = columns_from_rows(records, names, "records")  # names the first record lacking one
+    keys = _keys(list(map(methodcaller("get", KEY_FIELD), records)), lambda i: f"records[{i}].key")
+    return ScoreInput(cols, keys, len(records), lambda name, i: f"records[{i}].{name}", "records")
+
+
+def columns_input(columns: Mapping[str, Sequence[Any]], names: Sequence[str]) -> ScoreInput:
+    """Columns (``columns[name][i]``); all of the same length, every needed name present."""
+    lengths = {name: len(col) for name, col in columns.items()}
+    n = max(lengths.values(), default=0)
+    for name in [*names, *((KEY_FIELD,) if KEY_FIELD in columns else ())]:
+        if name not in columns:
             raise DataError(
-                "a record key must be 1 to 200 characters",
-                field=f"records[{i}].key",
-                value=k,
-                remedy="use a shorter identifier, or omit key",
+                f"columns has no column {name!r}",
+                field=f"columns.{name}",
+                value=None,
+                remedy=f"give a list of values for {name} (one per record)",
             )
-        keys.append(k)
-    return keys
+        if lengths[name] != n or n == 0:
+            raise DataError(
+                f"column {name} has {lengths[name]} values, the longest has {n}",
+                field=f"columns.{name}",
+                value=lengths[name],
+                remedy="give every column one value per record (at least one record)",
+            )
+    raw_keys = columns.get(KEY_FIELD)
+    keys = _keys(raw_keys, lambda i: f"columns.key[{i}]") if raw_keys is not None else None
+    return ScoreInput(
+        {name: columns[name] for name in names},
+        keys,
+        n,
+        lambda name, i: f"columns.{name}[{i}]",
+        "columns",
+    )
+
+
+def _namer(data: ScoreInput, name: str) -> FieldNamer:
+    return lambda i: data.field(name, i)
+
+
+def _coerce(batch: ScoreInput, name: str, kind: str) -> np.ndarray:
+    values = batch.columns[name]
+    if kind == "categorical" and set(map(type, values)) == {str}:
+        return np.array(values, dtype=object)  # already level text: nothing to convert
+    return coerce_column(name, kind, values, _namer(batch, name))
+
+
+def _json_pieces(values: Sequence[Any] | np.ndarray, numeric: bool) -> list[str]:
+    """Each value's JSON text (numbers: one orjson call for the whole column)."""
+    if numeric:
+        try:
+            return orjson.dumps(values, option=orjson.OPT_SERIALIZE_NUMPY)[1:-1].decode().split(",")
+        except orjson.JSONEncodeError:  # integers beyond 64 bits
+            return [orjson.dumps(float(v)).decode() for v in values]
+    if set(map(type, values)) == {str}:
+        text_of = {v: orjson.dumps(v).decode() for v in set(values)}
+        return list(map(text_of.__getitem__, values))
+    seen: dict[tuple[type, Any], str] = {}
+    out = []
+    for v in values:
+        k = (v.__class__, v)
+        text = seen.get(k)
+        if text is None:
+            text = seen[k] = orjson.dumps(v).decode()
+        out.append(text)
+    return out
+
+
+def _inputs_json(data: ScoreInput, v: LoadedVersion) -> list[str]:
+    """Each record's inputs (the columns the version uses) as a JSON object, built per column."""
+    names = v.inputs
+    template = "{" + ",".join(orjson.dumps(nm).decode().replace("%", "%%") + ":%s" for nm in names)
+    template += "}"
+    pieces = [
+        _json_pieces(data.columns[nm], v.kinds.get(nm, "numeric") != "categorical") for nm in names
+    ]
+    return [template % t for t in zip(*pieces, strict=True)]
 
 
 def _warnings(
     n: int, extrapolated: Mapping[str, np.ndarray], cols: Mapping[str, np.ndarray], v: LoadedVersion
-) -> list[list[str]]:
-    out: list[list[str]] = [[] for _ in range(n)]
+) -> list[Any]:
+    out: list[Any] = [_NO_WARNINGS] * n
     for name, mask in extrapolated.items():
         r = v.ranges.get(name, {})
         for i in np.flatnonzero(mask):
-            out[int(i)].append(
+            out[int(i)] = [
+                *out[int(i)],
                 f"extrapolation: {name}={float(cols[name][i]):g} is outside the training "
-                f"range [{r.get('min', float('nan')):g}, {r.get('max', float('nan')):g}]"
-            )
+                f"range [{r.get('min', float('nan')):g}, {r.get('max', float('nan')):g}]",
+            ]
     return out
+
+
+_ITEM_KEYS = ("score_id", "key", "probability", "ci_lower", "ci_upper", "eta", "se_eta", "warnings")
+
+
+def score_batch(
+    *,
+    session: Session,
+    model: RiskModel,
+    data: Callable[[LoadedVersion], ScoreInput],
+    version: int | None,
+    confidence_level: float,
+    explain: bool,
+    cache: VersionCache,
+    writer: ScoreLogWriter | None = None,
+) -> dict[str, Any]:
+    """Score, log and describe a batch; ``data(v)`` gives the raw columns version ``v`` needs.
+
+    With a ``writer``, batches of up to :data:`GROUP_COMMIT_MAX_ROWS` rows are committed by
+    its group commit (still before this returns); bigger ones commit in ``session``.
+    Returns the JSON-ready answer body (numbers as Python floats, one dict per record).
+    """
+    number = resolve_version(session, model, version)
+    v = cache.get(session, model, number)
+    batch = data(v)
+    cols = {name: _coerce(batch, name, kind) for name, kind in v.kinds.items()}
+    offset = None
+    if v.offset:
+        offset = coerce_column(
+            v.offset, "numeric", batch.columns[v.offset], _namer(batch, v.offset)
+        )
+    design = design_matrix(v.encoding, cols, field_prefix=batch.prefix)
+    pred = predict(design.X, v.coef, v.cov, offset=offset, confidence_level=confidence_level)
+    n = batch.n
+    ids = new_score_ids(n)
+    created_at = datetime.now(UTC)
+    eta, se, p = pred.eta.tolist(), pred.se_eta.tolist(), pred.probability.tolist()
+    rows = ScoreRows(model, number, ids, batch.keys, _inputs_json(batch, v), eta, se, p, created_at)
+    if writer is not None and n <= GROUP_COMMIT_MAX_ROWS:
+        session.commit()  # ends this request's read transaction
+        writer.write(rows)  # returns once the rows are committed (group commit)
+    else:
+        rows.insert(session)
+        session.commit()  # durable before the answer exists
+    warnings = _warnings(n, design.extrapolated, cols, v)
+    keys = batch.keys if batch.keys is not None else [None] * n
+    lo, hi = pred.ci_lower.tolist(), pred.ci_upper.tolist()
+    scores = [
+        dict(zip(_ITEM_KEYS, t, strict=True))
+        for t in zip(ids, keys, p, lo, hi, eta, se, warnings, strict=True)
+    ]
+    if explain:
+        contrib = contributions(design.X, v.coef).tolist()
+        for item, row in zip(scores, contrib, strict=True):
+            item["contributions"] = dict(zip(v.term_names, row, strict=True))
+    return {
+        "model": model.name,
+        "version": number,
+        "confidence_level": confidence_level,
+        "ci_method": CI_METHOD,
+        "n_records": n,
+        "created_at": created_at,
+        "scores": scores,
+    }
 
 
 def score_records(
@@ -160,57 +363,13 @@ def score_records(
     explain: bool,
     cache: VersionCache,
 ) -> dict[str, Any]:
-    """Score, log and describe ``records``; returns the JSON-ready answer body."""
-    number = resolve_version(session, model, version)
-    v = cache.get(session, model, number)
-    keys = _keys(records)
-    cols, offset = _record_columns(records, v)
-    design = design_matrix(v.encoding, cols, field_prefix="records")
-    pred = predict(design.X, v.coef, v.cov, offset=offset, confidence_level=confidence_level)
-    n = len(records)
-    used = list(v.kinds) + ([v.offset] if v.offset else [])
-    ids = [new_score_id() for _ in range(n)]
-    created_at = datetime.now(UTC)
-    rows = [
-        {
-            "id": ids[i],
-            "key": keys[i],
-            "inputs": {name: records[i][name] for name in used},
-            "eta": pred.eta[i],
-            "se_eta": pred.se_eta[i],
-            "probability": pred.probability[i],
-        }
-        for i in range(n)
-    ]
-    add_scores(
-        session=session, model=model, version_number=number, rows=rows, created_at=created_at
+    """:func:`score_batch` for a list of row dicts."""
+    return score_batch(
+        session=session,
+        model=model,
+        data=lambda v: records_input(records, v.inputs),
+        version=version,
+        confidence_level=confidence_level,
+        explain=explain,
+        cache=cache,
     )
-    session.commit()  # durable before the answer exists
-    warnings = _warnings(n, design.extrapolated, cols, v)
-    contrib = contributions(design.X, v.coef) if explain else None
-    eta, se, p = pred.eta.tolist(), pred.se_eta.tolist(), pred.probability.tolist()
-    lo, hi = pred.ci_lower.tolist(), pred.ci_upper.tolist()
-    scores = []
-    for i in range(n):
-        item: dict[str, Any] = {
-            "score_id": ids[i],
-            "key": keys[i],
-            "probability": p[i],
-            "ci_lower": lo[i],
-            "ci_upper": hi[i],
-            "eta": eta[i],
-            "se_eta": se[i],
-            "warnings": warnings[i],
-        }
-        if contrib is not None:
-            item["contributions"] = dict(zip(v.term_names, contrib[i].tolist(), strict=True))
-        scores.append(item)
-    return {
-        "model": model.name,
-        "version": number,
-        "confidence_level": confidence_level,
-        "ci_method": CI_METHOD,
-        "n_records": n,
-        "created_at": created_at,
-        "scores": scores,
-    }

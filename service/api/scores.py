@@ -1,15 +1,104 @@
-"""``POST /risk-models/{model}/scores``: probabilities with intervals, logged before answering."""
+"""``POST /risk-models/{model}/scores``: probabilities with intervals, logged before answering.
+
+The body is parsed once with orjson from the raw bytes; only the options go through pydantic
+(:class:`ScoreOptions`), the data (``records`` or ``columns``) are validated as arrays by the
+scoring operation. The documented body is :class:`ScoreCreate`.
+"""
 
 from __future__ import annotations
 
+import json
+from typing import Any, NoReturn
+
+import orjson
 from fastapi import APIRouter, Request
+from fastapi.exceptions import RequestValidationError
+from pydantic import ValidationError
+from starlette.concurrency import run_in_threadpool
 
 from service.api.deps import ModelDep, ScorerAccess, SessionDep, SettingsDep
 from service.api.responses import JSONBytes
+from service.errors import DataError
 from service.schemas import ErrorResponse, ScoreBatchPublic, ScoreCreate
-from service.scoring import score_records
+from service.schemas.scores import ScoreOptions
+from service.score_writer import writer_of
+from service.scoring import LoadedVersion, ScoreInput, columns_input, records_input, score_batch
 
 router = APIRouter(prefix="/risk-models/{model}/scores", tags=["scores"])
+
+_BODY_SCHEMA = ScoreCreate.model_json_schema(ref_template="#/components/schemas/{model}")
+_LAYOUT_REMEDY = 'send {"records": [{...}, ...]} or {"columns": {"feature": [...], ...}}'
+
+
+def _lenient_json(raw: bytes) -> Any:
+    """Python's own parser, which also reads ``NaN`` and ``Infinity`` (orjson refuses them)."""
+    try:
+        return json.loads(raw)
+    except (ValueError, UnicodeDecodeError) as exc:
+        raise DataError(
+            f"the body is not valid JSON: {str(exc)[:120]}",
+            field="body",
+            value=None,
+            remedy=_LAYOUT_REMEDY,
+        ) from exc
+
+
+def _parse(raw: bytes) -> tuple[ScoreOptions, Any, bool]:
+    """(options, data, is_columns) from the raw body; 422 for anything malformed."""
+    try:
+        body = orjson.loads(raw)
+    except orjson.JSONDecodeError:
+        body = _lenient_json(raw)  # NaN / Infinity literals: refused later, naming the cell
+    if not isinstance(body, dict):
+        raise DataError(
+            "the body must be a JSON object", field="body", value=None, remedy=_LAYOUT_REMEDY
+        )
+    records, columns = body.pop("records", None), body.pop("columns", None)
+    try:
+        options = ScoreOptions.model_validate(body)
+    except ValidationError as exc:
+        raise RequestValidationError(
+            [{**e, "loc": ("body", *e["loc"])} for e in exc.errors(include_url=False)]
+        ) from exc
+    if (records is None) == (columns is None):
+        _invalid(("records",), "give exactly one of records or columns", None)
+    if records is not None:
+        if not isinstance(records, list) or not records:
+            _invalid(("records",), "records must be a non-empty list of objects", records)
+        for i, r in enumerate(records):
+            if not isinstance(r, dict):
+                _invalid(("records", i), "a record must be a JSON object", r)
+        # A nested value needs a bracket of its own: when the body has no more brackets than
+        # its structure, nothing is nested (a bracket inside a string only costs the scan).
+        if raw.count(b"[") > 1 or raw.count(b"{") > len(records) + 1:
+            for i, r in enumerate(records):
+                _refuse_nested(r, lambda name, i=i: ("records", i, name))
+        return options, records, False
+    if not isinstance(columns, dict) or not columns:
+        _invalid(("columns",), "columns must be an object of lists, one per feature", columns)
+    nested = raw.count(b"[") > len(columns) or raw.count(b"{") > 2
+    for name, col in columns.items():
+        if not isinstance(col, list):
+            _invalid(("columns", name), "a column must be a list of values", col)
+        if not nested:
+            continue
+        bad = next((j for j, v in enumerate(col) if isinstance(v, list | dict)), None)
+        if bad is not None:
+            _invalid(("columns", name, bad), "values must be numbers, strings or null", col[bad])
+    return options, columns, True
+
+
+def _refuse_nested(record: dict[str, Any], loc: Any) -> None:
+    for name, v in record.items():
+        if isinstance(v, list | dict):
+            _invalid(loc(name), "values must be numbers, strings or null", v)
+
+
+def _invalid(loc: tuple[str | int, ...], message: str, value: Any) -> NoReturn:
+    """Refuse the body's structure as pydantic would (code ``invalid_request``, 422)."""
+    raise RequestValidationError(
+        [{"type": "value_error", "loc": ("body", *loc), "msg": message, "input": value}]
+    )
 
 
 @router.post(
@@ -17,23 +106,35 @@ router = APIRouter(prefix="/risk-models/{model}/scores", tags=["scores"])
     response_model=ScoreBatchPublic,
     summary="Score records with the champion (or a given version)",
     responses={409: {"model": ErrorResponse, "description": "A record key is already used."}},
+    openapi_extra={
+        "requestBody": {
+            "required": True,
+            "content": {"application/json": {"schema": _BODY_SCHEMA}},
+        }
+    },
 )
-def post_scores(
-    body: ScoreCreate,
+async def post_scores(
     model: ModelDep,
     session: SessionDep,
     settings: SettingsDep,
     request: Request,
     _: ScorerAccess,
 ) -> JSONBytes:
-    answer = score_records(
+    options, data, is_columns = _parse(await request.body())
+
+    def batch(v: LoadedVersion) -> ScoreInput:
+        return columns_input(data, v.inputs) if is_columns else records_input(data, v.inputs)
+
+    answer = await run_in_threadpool(
+        score_batch,
         session=session,
         model=model,
-        records=body.records,
-        version=body.version,
-        confidence_level=body.confidence_level or settings.default_confidence_level,
-        explain=body.explain,
+        data=batch,
+        version=options.version,
+        confidence_level=options.confidence_level or settings.default_confidence_level,
+        explain=options.explain,
         cache=request.app.state.version_cache,
+        writer=writer_of(request.app.state),
     )
     request.app.state.metrics.records_scored.labels(model.name).inc(answer["n_records"])
     return JSONBytes(answer)
