@@ -9,7 +9,7 @@ from datetime import datetime
 from typing import Any, Literal
 
 import numpy as np
-from sqlalchemy import ColumnElement, Float, Select, and_, cast, func, insert, select
+from sqlalchemy import BigInteger, ColumnElement, Select, and_, cast, func, insert, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import InstrumentedAttribute, Session
 
@@ -21,6 +21,7 @@ from service.errors import DuplicateKeyError
 
 __all__ = [
     "ScoreColumns",
+    "add_score_batch",
     "add_scores",
     "count_scores",
     "find_scores_by_keys",
@@ -87,6 +88,70 @@ def add_scores(
     return [str(v["id"]) for v in values]
 
 
+def add_score_batch(
+    *,
+    session: Session,
+    model: RiskModel,
+    version_number: int,
+    ids: Sequence[str],
+    keys: Sequence[str | None] | None,
+    inputs_json: Sequence[str],
+    eta: Sequence[float],
+    se_eta: Sequence[float],
+    probability: Sequence[float],
+    created_at: datetime,
+) -> None:
+    """Columnar :func:`add_scores` for large batches: same checks, same rows, less per-row work.
+
+    ``inputs_json`` holds each row's inputs already serialised as a JSON object (finite
+    numbers only). Rows go to the driver's ``executemany`` as plain tuples: the timestamp is
+    converted once for the whole batch by the column type's own bind processor, and no
+    per-row type processing or dict building happens. ``keys`` None means no row has a key.
+    The caller has checked that the version exists (the foreign key refuses it otherwise).
+    """
+    rows_for_errors = [{"key": k} for k in keys] if keys is not None else []
+    if keys is not None:
+        _refuse_duplicate_keys(session, model, rows_for_errors)
+    conn = session.connection()
+    table = Score.__table__
+    at_proc = table.c.created_at.type.bind_processor(conn.dialect)
+    at = at_proc(created_at) if at_proc is not None else created_at
+    if conn.dialect.name == "sqlite" and isinstance(at, datetime):
+        at = at.isoformat(" ")  # what sqlite3's datetime adapter writes, once per batch
+    n = len(ids)
+    params = list(
+        zip(
+            ids,
+            [model.id] * n,
+            [version_number] * n,
+            keys if keys is not None else [None] * n,
+            inputs_json,
+            eta,
+            se_eta,
+            probability,
+            [at] * n,
+            strict=True,
+        )
+    )
+    if keys is not None:  # keyed rows in key order: concurrent writers lock keys in one order
+        params.sort(key=lambda r: (r[3] is None, r[3] or ""))
+    mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
+    quote = conn.dialect.identifier_preparer.quote
+    names = ("id", "model_id", "version_number", "key", "inputs", "eta", "se_eta")
+    columns = ", ".join(quote(c) for c in (*names, "probability", "created_at"))
+    sql = f"INSERT INTO {quote(table.name)} ({columns}) VALUES ({', '.join([mark] * 9)})"
+    try:
+        with session.begin_nested():
+            for part in chunks(params):
+                conn.exec_driver_sql(sql, list(part))
+    except IntegrityError as error:  # a key taken concurrently (PostgreSQL)
+        wanted = [str(k) for k in (keys or []) if k is not None]
+        taken = _existing_keys(session, model, wanted)
+        if not taken:
+            raise
+        raise _duplicate([k for k in wanted if k in taken], rows_for_errors) from error
+
+
 def _refuse_duplicate_keys(
     session: Session, model: RiskModel, rows: Sequence[Mapping[str, Any]]
 ) -> None:
@@ -142,11 +207,14 @@ def get_score(*, session: Session, model: RiskModel, score_id: str) -> Score | N
 
 
 def get_scores(*, session: Session, model: RiskModel, score_ids: Sequence[str]) -> dict[str, Score]:
-    """Stored scores of ``model`` among ``score_ids``, by id (unknown ids are absent)."""
+    """Stored scores of ``model`` among ``score_ids``, by id (unknown ids are absent).
+
+    Looked up by primary key alone, the model checked in Python (see outcomes._resolve).
+    """
     found: dict[str, Score] = {}
     for part in chunks(sorted(set(score_ids))):
-        stmt = select(Score).where(Score.model_id == model.id, Score.id.in_(part))
-        found.update({s.id: s for s in session.scalars(stmt)})
+        stmt = select(Score).where(Score.id.in_(part))
+        found.update({s.id: s for s in session.scalars(stmt) if s.model_id == model.id})
     return found
 
 
@@ -173,34 +241,48 @@ class ScoreColumns:
         return int(self.eta.shape[0])
 
 
-def _epoch_seconds(column: InstrumentedAttribute[datetime], dialect: str) -> ColumnElement[float]:
-    """Seconds since 1970-01-01 UTC computed in the database (no Python datetimes built)."""
-    if dialect == "sqlite":  # stored as naive UTC text; julianday has millisecond resolution
-        return (func.julianday(column) - 2440587.5) * 86400.0
-    return cast(func.extract("epoch", column), Float)
+def _epoch_micros(column: InstrumentedAttribute[datetime], dialect: str) -> ColumnElement[int]:
+    """Microseconds since 1970-01-01 UTC, computed exactly in the database.
+
+    SQLite keeps the time as text ``YYYY-MM-DD HH:MM:SS.ffffff`` (SQLAlchemy's storage format):
+    whole seconds from ``strftime('%s')`` plus the six fraction digits. PostgreSQL: ``extract``
+    gives exact numeric seconds. Values (~1.7e15) are exact in float64, below 2**53.
+    """
+    if dialect == "sqlite":
+        seconds = cast(func.strftime("%s", column), BigInteger)
+        return seconds * 1_000_000 + cast(func.substr(column, 21, 6), BigInteger)
+    return cast(func.extract("epoch", column) * 1_000_000, BigInteger)
 
 
 def _window(
     stmt: Select[Any],
     *,
+    time_col: InstrumentedAttribute[datetime],
+    model_col: InstrumentedAttribute[int],
+    version_col: InstrumentedAttribute[int],
     model: RiskModel,
     since: datetime | None,
     until: datetime | None,
-    on: WindowOn,
     version: int | None,
 ) -> Select[Any]:
-    if on not in ("score", "outcome"):
-        raise ValueError(f"on must be 'score' or 'outcome', not {on!r}")
-    time_col = Score.created_at if on == "score" else Outcome.observed_at
-    model_col = Score.model_id if on == "score" else Outcome.model_id
     conditions: list[ColumnElement[bool]] = [model_col == model.id]
     if since is not None:
         conditions.append(time_col >= since)
     if until is not None:
         conditions.append(time_col < until)
     if version is not None:
-        conditions.append(Score.version_number == version)
+        conditions.append(version_col == version)
     return stmt.where(and_(*conditions))
+
+
+def _score_window(stmt: Select[Any], **kw: Any) -> Select[Any]:
+    return _window(
+        stmt,
+        time_col=Score.created_at,
+        model_col=Score.model_id,
+        version_col=Score.version_number,
+        **kw,
+    )
 
 
 def scores_with_outcomes(
@@ -214,25 +296,41 @@ def scores_with_outcomes(
 ) -> ScoreColumns:
     """Every score of ``model`` that has an outcome, within ``[since, until)``.
 
-    ``on="score"`` windows by the score's ``created_at``, ``on="outcome"`` by the outcome's
-    ``observed_at``; ``version`` keeps one version's scores. One query; values go from the
-    driver's tuples straight into one float64 array (no ORM objects, no datetime objects).
+    ``on="score"`` windows (and orders) by the score's ``created_at``, ``on="outcome"`` by the
+    outcome's ``observed_at``; ``version`` keeps one version's scores. One query on the outcome
+    table alone (it carries each score's prediction); the driver's tuples go straight into one
+    float64 array and are put in time order by a stable numpy sort (no ORM objects, no
+    datetime objects, no SQL sort). Ties in time keep no particular order.
     """
+    if on not in ("score", "outcome"):
+        raise ValueError(f"on must be 'score' or 'outcome', not {on!r}")
     dialect = session.get_bind().dialect.name
     stmt = select(
-        Score.eta,
-        Score.se_eta,
-        Score.probability,
+        Outcome.eta,
+        Outcome.se_eta,
+        Outcome.probability,
         Outcome.outcome,
-        _epoch_seconds(Score.created_at, dialect),
-        _epoch_seconds(Outcome.observed_at, dialect),
-        Score.version_number,
-    ).join(Outcome, Outcome.score_id == Score.id)
-    stmt = _window(stmt, model=model, since=since, until=until, on=on, version=version)
+        _epoch_micros(Outcome.scored_at, dialect),
+        _epoch_micros(Outcome.observed_at, dialect),
+        Outcome.version_number,
+    )
+    stmt = _window(
+        stmt,
+        time_col=Outcome.scored_at if on == "score" else Outcome.observed_at,
+        model_col=Outcome.model_id,
+        version_col=Outcome.version_number,
+        model=model,
+        since=since,
+        until=until,
+        version=version,
+    )
     # Core execution on the session's connection: plain driver tuples, no ORM row processing.
-    result = session.connection().execute(stmt.order_by(Score.created_at))
+    result = session.connection().execute(stmt)
     raw = result.cursor.fetchall() if result.cursor is not None else []
+    result.close()
     table = np.array(raw, dtype=np.float64).reshape(-1, 7)
+    order = np.argsort(table[:, 4 if on == "score" else 5], kind="stable")
+    table = table[order]
     return ScoreColumns(
         eta=np.ascontiguousarray(table[:, 0]),
         se_eta=np.ascontiguousarray(table[:, 1]),
@@ -244,8 +342,8 @@ def scores_with_outcomes(
     )
 
 
-def _to_datetime64(seconds: np.ndarray) -> np.ndarray:
-    return np.rint(seconds * 1e6).astype(np.int64).view("datetime64[us]")
+def _to_datetime64(micros: np.ndarray) -> np.ndarray:
+    return micros.astype(np.int64).view("datetime64[us]")
 
 
 def count_scores(
@@ -257,12 +355,11 @@ def count_scores(
     version: int | None = None,
 ) -> int:
     """Number of logged scores of ``model`` created in ``[since, until)``."""
-    stmt = _window(
+    stmt = _score_window(
         select(func.count()).select_from(Score),
         model=model,
         since=since,
         until=until,
-        on="score",
         version=version,
     )
     return int(session.scalar(stmt) or 0)
@@ -278,7 +375,7 @@ def score_inputs(
     limit: int | None = None,
 ) -> list[dict[str, Any]]:
     """The ``inputs`` of scores created in ``[since, until)``, oldest first (for input drift)."""
-    stmt = _window(
-        select(Score.inputs), model=model, since=since, until=until, on="score", version=version
+    stmt = _score_window(
+        select(Score.inputs), model=model, since=since, until=until, version=version
     )
     return list(session.scalars(stmt.order_by(Score.created_at).limit(limit)))
