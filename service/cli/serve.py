@@ -1,8 +1,15 @@
-"""``riskfit serve --host --port --database-url [--demo]``: run the service under uvicorn."""
+"""``riskfit serve --host --port --database-url [--workers N] [--demo]``: run under uvicorn.
+
+With ``--workers N`` (N > 1) uvicorn starts N processes that each build the app with
+:func:`service.app.create_app` from the environment; the flags given here are passed to them
+as ``RISKFIT_*`` variables, so every worker sees the same settings. Migrations at start-up
+are safe to run from several processes (see ``models_store.db.upgrade``).
+"""
 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from typing import Any
 
@@ -18,6 +25,9 @@ def register(subparsers: Any) -> None:
         "--demo", action="store_true", help="create the demo model first if the store is empty"
     )
     parser.add_argument("--log-level", default="info", help="uvicorn log level")
+    parser.add_argument(
+        "--workers", type=int, default=1, help="worker processes (default 1; e.g. one per core)"
+    )
     parser.add_argument(
         "--no-auth", action="store_true", help="no API keys (local development, 127.0.0.1 only)"
     )
@@ -69,5 +79,30 @@ def run(args: argparse.Namespace) -> int:
         from service.cli.demo import seed_demo_into
 
         seed_demo_into(settings)
-    uvicorn.run(app, host=settings.host, port=settings.port, log_level=args.log_level)
+    workers = getattr(args, "workers", 1)
+    if workers < 1:
+        print(f"riskfit serve: --workers must be >= 1, not {workers}", file=sys.stderr)
+        return 2
+    if workers == 1:
+        uvicorn.run(app, host=settings.host, port=settings.port, log_level=args.log_level)
+        return 0
+    os.environ.update(worker_environment(settings))
+    uvicorn.run(
+        "service.app:create_app",
+        factory=True,
+        workers=workers,
+        host=settings.host,
+        port=settings.port,
+        log_level=args.log_level,
+    )
     return 0
+
+
+def worker_environment(settings: Settings) -> dict[str, str]:
+    """The ``RISKFIT_*`` variables that make a worker process build these same settings."""
+    return {
+        "RISKFIT_HOST": settings.host,
+        "RISKFIT_PORT": str(settings.port),
+        "RISKFIT_DATABASE_URL": str(settings.database_url),
+        "RISKFIT_AUTH_REQUIRED": "true" if settings.auth_required else "false",
+    }
