@@ -93,6 +93,7 @@ class ServerProcess:
         *,
         env: Mapping[str, str] | None = None,
         name: str = "server",
+        command: list[str] | None = None,
     ) -> None:
         self.database_url = database_url
         self.extra_env = dict(env or {})
@@ -100,6 +101,7 @@ class ServerProcess:
         self.port = 0
         self.proc: subprocess.Popen[bytes] | None = None
         self.starts = 0
+        self.command = command  # argv with "{port}" for the port; default: riskfit serve
 
     @property
     def base_url(self) -> str:
@@ -113,24 +115,27 @@ class ServerProcess:
             log.write(f"--- start {self.starts} on port {self.port}\n".encode())
             log.flush()
             self.proc = subprocess.Popen(
-                [
-                    *RISKFIT,
-                    "serve",
-                    "--host",
-                    LOCALHOST,
-                    "--port",
-                    str(self.port),
-                    "--database-url",
-                    self.database_url,
-                    "--log-level",
-                    "warning",
-                ],
+                [a.replace("{port}", str(self.port)) for a in self.command or self._serve()],
                 env=_env(self.database_url, self.extra_env),
                 stdout=log,
                 stderr=subprocess.STDOUT,
             )
         self._wait_ready()
         return self
+
+    def _serve(self) -> list[str]:
+        return [
+            *RISKFIT,
+            "serve",
+            "--host",
+            LOCALHOST,
+            "--port",
+            "{port}",
+            "--database-url",
+            self.database_url,
+            "--log-level",
+            "warning",
+        ]
 
     def _wait_ready(self) -> None:
         deadline = time.monotonic() + READY_TIMEOUT_S
