@@ -135,6 +135,9 @@ class RiskfitError(Exception):
 
 def _short(value: Any, limit: int = 200) -> Any:
     """Keep JSON-able scalars; render anything else (or anything long) as a short string."""
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) >= 2**63:
+        digits = str(value)  # JSON encoders refuse integers beyond 64 bits: echo as text
+        return digits if len(digits) <= 24 else f"{digits[:12]}...({len(digits)} digits)"
     if isinstance(value, bool | int | float) or value is None:
         if isinstance(value, float) and value != value:  # NaN is not valid JSON
             return "NaN"

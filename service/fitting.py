@@ -39,7 +39,7 @@ from models_store.models import create_model, get_model
 from models_store.orm import ModelVersion, RiskModel
 from models_store.versions import add_version
 from service.data_io import NUMERIC_KINDS, TrainingData
-from service.errors import NonConvergenceError, SpecError
+from service.errors import FitError, NonConvergenceError, SingleClassError, SpecError
 from service.schemas import VersionSpec
 from service.stats.blocks import array_blocks
 from service.stats.design import Encoding, design_matrix, learn_encoding
@@ -255,6 +255,15 @@ def require_converged(fit: LogisticFit, method: str) -> None:
         )
 
 
+def _in_request_terms(exc: FitError, spec: VersionSpec) -> FitError:
+    """Name the request's fields instead of the engine's arrays ``y`` and ``X``."""
+    if isinstance(exc, SingleClassError):
+        exc.field = f"data.{spec.outcome}"
+    elif exc.field == "X" or (exc.field or "").startswith("X["):
+        exc.field = "features"
+    return exc
+
+
 def fit_version(
     *,
     session: Session,
@@ -277,16 +286,19 @@ def fit_version(
     features = [f.model_dump(exclude_none=True) for f in spec.features]
     encoding = learn_encoding(features, data.columns, interactions=spec.interactions)
     X = design_matrix(encoding, data.columns).X
-    fit = fit_logistic(
-        X,
-        data.y,
-        weights=data.weights,
-        offset=data.offset,
-        term_names=encoding.term_names,
-        method=options.method,
-        ridge_lambda=options.ridge_lambda,
-        max_iter=options.max_iter,
-    )
+    try:
+        fit = fit_logistic(
+            X,
+            data.y,
+            weights=data.weights,
+            offset=data.offset,
+            term_names=encoding.term_names,
+            method=options.method,
+            ridge_lambda=options.ridge_lambda,
+            max_iter=options.max_iter,
+        )
+    except FitError as exc:
+        raise _in_request_terms(exc, spec) from exc.__cause__
     require_converged(fit, options.method)
     blocks = array_blocks(X, data.y, data.weights, data.offset)
     if options.profile_intervals:

@@ -316,14 +316,9 @@ CATALOGUE: list[tuple[str, str, str, dict[str, Any], int, str]] = [
 ]
 
 
-# Found by this catalogue, outside this suite's files (reported; remove the mark once fixed):
-KNOWN = {
-    "huge-int-10e400": pytest.mark.xfail(
-        strict=True,
-        reason="500: the error body echoes the int value and orjson refuses ints beyond 64 bits "
-        "(service/errors.py _short should render such ints as text)",
-    ),
-}
+# Cases that once failed outside this suite's files, fixed since; add a case here with an
+# xfail(strict=True) mark when the catalogue finds a new one.
+KNOWN: dict[str, pytest.MarkDecorator] = {}
 
 
 @pytest.mark.parametrize(
