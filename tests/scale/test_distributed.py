@@ -86,6 +86,7 @@ def test_arrays_equal_single_machine(
     assert got.null_penalized_loglik == pytest.approx(local.null_penalized_loglik, rel=1e-10)
 
 
+@pytest.mark.slow  # > 20 s on a loaded 2-core machine
 def test_parquet_directory_equal_single_machine(client: Any, files: dict[str, Path]) -> None:
     kinds = {f["name"]: f["kind"] for f in SPEC_FEATURES}
     spec = TableSpec(str(files["directory"]), kinds, "outcome", "exposure", "log_length")

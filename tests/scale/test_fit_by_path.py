@@ -130,6 +130,7 @@ def test_disabled_by_default(tmp_path: Path, files: dict[str, Path]) -> None:
         client.close()
 
 
+@pytest.mark.slow  # > 20 s on a loaded 2-core machine
 def test_riskfit_fit_by_path_end_to_end(tmp_path: Path, allowed: Path) -> None:
     url = sqlite_url(tmp_path / "cli")
     (tmp_path / "cli").mkdir(exist_ok=True)

@@ -55,7 +55,7 @@ def test_encoding_references_ranges_identical(
     [
         ("parquet", "mle", "exposure", "log_length"),
         ("directory", "mle", None, None),
-        ("parquet", "firth", "exposure", None),
+        pytest.param("parquet", "firth", "exposure", None, marks=pytest.mark.slow),
         ("csv", "mle", "exposure", "log_length"),
         ("csv", "firth", None, "log_length"),
     ],
