@@ -40,6 +40,14 @@ class Settings(BaseSettings):
         description="Server secret mixed into stored key hashes (HMAC-SHA256 instead of "
         "SHA-256); changing it invalidates every existing key.",
     )
+    dashboard_session_secret: SecretStr | None = Field(
+        None,
+        description="Secret signing dashboard sign-in cookies (HMAC-SHA256); unset: random per "
+        "process, so set it when serving with more than one worker.",
+    )
+    dashboard_session_hours: float = Field(
+        8.0, gt=0.0, le=24 * 30, description="How long a dashboard sign-in lasts (hours)."
+    )
     # --- limits (service/limits.py) ---
     max_body_bytes: int = Field(
         32 * 2**20, ge=1024, description="Largest JSON (non-multipart) request body, bytes (413)."

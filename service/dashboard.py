@@ -20,7 +20,7 @@ from markupsafe import Markup
 from service import __version__
 from service.plots import drift_figure, psi_figure, reliability_figure, render
 
-__all__ = ["CAUTIONS", "STATIC_DIR", "index_page", "measure_rows", "model_page"]
+__all__ = ["CAUTIONS", "STATIC_DIR", "index_page", "measure_rows", "model_page", "sign_in_page"]
 
 TEMPLATES_DIR = Path(__file__).resolve().parent / "templates"
 STATIC_DIR = Path(__file__).resolve().parent / "static"
@@ -109,13 +109,18 @@ def _extra(key: str, measure: dict[str, Any]) -> str | None:
     return None
 
 
-def index_page(models: list[dict[str, Any]]) -> str:
+def _render(template: str, **context: Any) -> str:
+    return _env().get_template(template).render(cautions=CAUTIONS, version=__version__, **context)
+
+
+def index_page(models: list[dict[str, Any]], signed_in_as: str | None = None) -> str:
     """The list of models with their champion and open alerts."""
-    return (
-        _env()
-        .get_template("index.html")
-        .render(models=models, cautions=CAUTIONS, version=__version__)
-    )
+    return _render("index.html", models=models, signed_in_as=signed_in_as)
+
+
+def sign_in_page(*, next_path: str, error: str | None = None) -> str:
+    """The sign-in form: one API key field; ``error`` says why the last attempt failed."""
+    return _render("sign_in.html", next_path=next_path, error=error, signed_in_as=None)
 
 
 def model_page(
@@ -127,6 +132,7 @@ def model_page(
     drift: dict[str, Any],
     alerts: dict[str, Any],
     thresholds: dict[str, Any],
+    signed_in_as: str | None = None,
 ) -> str:
     """One model's page (see module docstring)."""
     plots = {
@@ -134,19 +140,15 @@ def model_page(
         "measures": inline_svg(render(drift_figure(drift, thresholds), "svg")),
         "psi": inline_svg(render(psi_figure(drift), "svg")),
     }
-    return (
-        _env()
-        .get_template("model.html")
-        .render(
-            model=model,
-            versions=versions,
-            history=history,
-            report=report,
-            rows=measure_rows(report),
-            drift=drift,
-            alerts=alerts,
-            plots=plots,
-            cautions=CAUTIONS,
-            version=__version__,
-        )
+    return _render(
+        "model.html",
+        model=model,
+        versions=versions,
+        history=history,
+        report=report,
+        rows=measure_rows(report),
+        drift=drift,
+        alerts=alerts,
+        plots=plots,
+        signed_in_as=signed_in_as,
     )

@@ -1,29 +1,68 @@
-"""``GET /dashboard`` and ``GET /dashboard/{model}``: server-rendered HTML pages.
+"""``GET /dashboard`` and ``GET /dashboard/{model}``: server-rendered HTML pages, and the
+sign-in / sign-out pages a browser needs (see :mod:`service.api.dashboard_session`).
 
 The model page shows the champion's calibration report over all its scored outcomes, the
 drift view (evaluated as ``GET .../drift`` would, so alerts it finds are stored once), open
 alerts, versions and champion history, and the cautions.
+
+The pages are HTML, but their errors are the API's JSON error body (401, 404, 422): the
+OpenAPI document says so per status (:data:`JSON_ERRORS`). A model named ``sign-in`` has no
+dashboard page (that path is the sign-in form); its API routes are unaffected.
 """
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Annotated, Any
 
-from fastapi import APIRouter, Request
-from fastapi.responses import FileResponse, HTMLResponse
+from fastapi import APIRouter, Depends, Form, Request
+from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse, Response
 
 from models_store.alerts import list_alerts
 from models_store.champions import champion_history
-from models_store.models import list_models
+from models_store.models import list_models, require_model
 from models_store.versions import list_versions
 from service.api.champion import champion_public
-from service.api.deps import ModelDep, ScorerAccess, SessionDep, SettingsDep
+from service.api.dashboard_session import (
+    COOKIE,
+    SIGN_IN_PATH,
+    dashboard_access,
+    safe_next,
+    signed_in_redirect,
+)
+from service.api.deps import ModelName, Principal, SessionDep, SettingsDep
 from service.api.models import model_public
 from service.api.monitoring import alerts_public, evaluate_drift, thresholds
-from service.dashboard import STATIC_DIR, index_page, model_page
+from service.dashboard import STATIC_DIR, index_page, model_page, sign_in_page
+from service.errors import RiskfitError
 from service.monitoring import Window, calibration_view
+from service.security import authorize
+
+__all__ = ["JSON_ERRORS", "router"]
 
 router = APIRouter(prefix="/dashboard", tags=["dashboard"])
+
+_ERROR_REF = {"schema": {"$ref": "#/components/schemas/ErrorResponse"}}
+
+
+def _json_error(description: str) -> dict[str, Any]:
+    return {"description": description, "content": {"application/json": _ERROR_REF}}
+
+
+#: The JSON error answers of the HTML routes (FastAPI would file them under text/html).
+JSON_ERRORS: dict[int | str, dict[str, Any]] = {
+    401: _json_error("No, unknown or revoked API key (clients that do not accept text/html)."),
+    403: _json_error("The key lacks the role needed."),
+    404: _json_error("Unknown model or path."),
+    413: _json_error("Request body over the size limit."),
+    422: _json_error("Invalid path, query or form value."),
+}
+REDIRECT = {303: {"description": "A browser without a session goes to the sign-in page."}}
+Access = Annotated[Principal, Depends(dashboard_access)]
+
+
+def _who(principal: Principal, request: Request) -> str | None:
+    """The signed-in key's name when the page was reached through the session cookie."""
+    return principal.name if COOKIE in request.cookies and principal.key_id else None
 
 
 @router.get("/static/riskfit.css", include_in_schema=False)
@@ -31,28 +70,91 @@ def stylesheet() -> FileResponse:
     return FileResponse(STATIC_DIR / "riskfit.css", media_type="text/css")
 
 
-@router.get("", response_class=HTMLResponse, summary="Dashboard: every model")
-def dashboard_index(session: SessionDep, _: ScorerAccess) -> HTMLResponse:
+@router.get(
+    "/sign-in",
+    response_class=HTMLResponse,
+    summary="Dashboard: the sign-in form (API key)",
+    responses=JSON_ERRORS,
+)
+def sign_in_form(next: str | None = None) -> HTMLResponse:
+    return HTMLResponse(sign_in_page(next_path=safe_next(next)))
+
+
+@router.post(
+    "/sign-in",
+    response_class=HTMLResponse,
+    summary="Dashboard: sign in with an API key (sets a session cookie, 303 to the dashboard)",
+    responses={
+        **JSON_ERRORS,
+        303: {"description": "Signed in: the session cookie is set."},
+        401: {
+            "description": "Unknown or revoked key: the form again, with the reason.",
+            "content": {"text/html": {"schema": {"type": "string"}}},
+        },
+    },
+)
+def sign_in(
+    request: Request,
+    session: SessionDep,
+    api_key: Annotated[str, Form(min_length=1, max_length=200, description="An API key.")],
+    next: Annotated[str | None, Form(max_length=200)] = None,
+) -> Response:
+    scope = {**request.scope, "state": {}}
+    scope["headers"] = [(b"authorization", f"Bearer {api_key.strip()}".encode())]
+    try:
+        principal = authorize(Request(scope, request.receive), session, "scorer")
+    except RiskfitError as exc:  # 401 unknown / revoked key; the key is never echoed
+        page = sign_in_page(next_path=safe_next(next), error=f"{exc.message}. {exc.remedy}")
+        return HTMLResponse(page, status_code=401)
+    return signed_in_redirect(request, principal, next or "/dashboard")
+
+
+@router.post(
+    "/sign-out",
+    summary="Dashboard: sign out (clears the session cookie, 303 to the sign-in page)",
+    response_class=RedirectResponse,
+    status_code=303,
+    responses={303: {"description": "Signed out."}, 413: JSON_ERRORS[413]},
+)
+def sign_out() -> RedirectResponse:
+    response = RedirectResponse(SIGN_IN_PATH, status_code=303)
+    response.delete_cookie(COOKIE, path="/dashboard", httponly=True, samesite="strict")
+    return response
+
+
+@router.get(
+    "",
+    response_class=HTMLResponse,
+    summary="Dashboard: every model",
+    responses={**JSON_ERRORS, **REDIRECT},
+)
+def dashboard_index(request: Request, session: SessionDep, who: Access) -> HTMLResponse:
     models = []
     for m in list_models(session=session, limit=1000, offset=0):
         item = model_public(session, m)
         item["open_alerts"] = len(list_alerts(session=session, model=m, open_only=True))
         models.append(item)
-    return HTMLResponse(index_page(models))
+    return HTMLResponse(index_page(models, signed_in_as=_who(who, request)))
 
 
-@router.get("/{model}", response_class=HTMLResponse, summary="Dashboard: one model")
+@router.get(
+    "/{model}",
+    response_class=HTMLResponse,
+    summary="Dashboard: one model",
+    responses={**JSON_ERRORS, **REDIRECT},
+)
 def dashboard_model(
-    request: Request, model: ModelDep, session: SessionDep, settings: SettingsDep, _: ScorerAccess
+    request: Request, model: ModelName, session: SessionDep, settings: SettingsDep, who: Access
 ) -> HTMLResponse:
-    info = model_public(session, model)
+    row = require_model(session=session, name=model)  # after the access check: 401 before 404
+    info = model_public(session, row)
     champion = info["champion_version"]
     window = Window(version=champion)
-    report = calibration_view(session=session, model=model, window=window, settings=settings)
-    drift = evaluate_drift(request, session, model, window, "count", None, settings, None)
+    report = calibration_view(session=session, model=row, window=window, settings=settings)
+    drift = evaluate_drift(request, session, row, window, "count", None, settings, None)
     history: list[dict[str, Any]] = (
-        champion_public(session, model)["history"]
-        if champion_history(session=session, model=model)
+        champion_public(session, row)["history"]
+        if champion_history(session=session, model=row)
         else []
     )
     versions = [
@@ -64,7 +166,7 @@ def dashboard_model(
             "n_events": v.n_events,
             "created_at": v.created_at,
         }
-        for v in list_versions(session=session, model=model)
+        for v in list_versions(session=session, model=row)
     ]
     page = model_page(
         model=info,
@@ -72,7 +174,8 @@ def dashboard_model(
         history=history,
         report=report,
         drift=drift,
-        alerts=alerts_public(session, model, settings, open_only=False, limit=200),
+        alerts=alerts_public(session, row, settings, open_only=False, limit=200),
         thresholds=thresholds(settings),
+        signed_in_as=_who(who, request),
     )
     return HTMLResponse(page)

@@ -7,7 +7,8 @@ from fastapi import APIRouter
 from service.api.deps import ModelDep, ScorerAccess, SessionDep
 from service.api.responses import JSONBytes
 from service.monitoring import ingest_outcomes
-from service.schemas.outcomes import OutcomeBatchPublic, OutcomeCreate
+from service.schemas.common import ErrorResponse
+from service.schemas.outcomes import OutcomeBatchPublic, OutcomeCreate, OutcomeRefusedPublic
 
 router = APIRouter(prefix="/risk-models/{model}/outcomes", tags=["outcomes"])
 
@@ -38,8 +39,16 @@ Status:
     description=DESCRIPTION,
     responses={
         207: {"model": OutcomeBatchPublic, "description": "Some items refused; see the lists."},
-        409: {"model": OutcomeBatchPublic, "description": "Every item that stood conflicts."},
-        404: {"model": OutcomeBatchPublic, "description": "Every item names an unknown score."},
+        409: {
+            "model": OutcomeRefusedPublic | ErrorResponse,
+            "description": "No item stood and some conflict (the lists and `error`), or the "
+            "store refused the batch (the error body alone).",
+        },
+        404: {
+            "model": OutcomeRefusedPublic | ErrorResponse,
+            "description": "Every item names an unknown score (the lists and `error`), or the "
+            "model is unknown (the error body alone).",
+        },
     },
 )
 def post_outcomes(

@@ -6,9 +6,16 @@ from typing import Annotated, Any
 
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, model_validator
 
-from service.schemas.common import StrictModel
+from service.schemas.common import ErrorDetail, StrictModel
 
-__all__ = ["OutcomeBatchPublic", "OutcomeCounts", "OutcomeCreate", "OutcomeIn", "OutcomeItemPublic"]
+__all__ = [
+    "OutcomeBatchPublic",
+    "OutcomeCounts",
+    "OutcomeCreate",
+    "OutcomeIn",
+    "OutcomeItemPublic",
+    "OutcomeRefusedPublic",
+]
 
 MAX_OUTCOMES = 50_000
 
@@ -86,3 +93,9 @@ class OutcomeBatchPublic(BaseModel):
     error: dict[str, Any] | None = Field(
         None, description="Present with status 409 or 404: the shared error object."
     )
+
+
+class OutcomeRefusedPublic(OutcomeBatchPublic):
+    """A batch of which no item stood (404 all unknown, 409 conflicts): the lists and ``error``."""
+
+    error: ErrorDetail  # type: ignore[assignment]

@@ -4,17 +4,14 @@ driven by Playwright's Python API) against a live uvicorn on 127.0.0.1."""
 from __future__ import annotations
 
 import shutil
-import socket
-import threading
-import time
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import pytest
-import uvicorn
 
 from service.app import create_app
+from service.cli.keys import create_key_in_store
 from service.dashboard import CAUTIONS
 from tests.api.conftest import ApiClient
 from tests.dashboard._fill import (
@@ -25,6 +22,7 @@ from tests.dashboard._fill import (
     post_outcomes,
     score,
 )
+from tests.demo._live import live_server
 
 CHROMIUM = "/usr/bin/chromium"
 ARGS = [
@@ -79,27 +77,10 @@ def test_model_page_shows_what_the_api_says(filled: dict[str, Any], tmp_path: Pa
 
 @pytest.fixture(scope="module")
 def live_url(filled: dict[str, Any]) -> Iterator[str]:
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        port = sock.getsockname()[1]
-    config = uvicorn.Config(
-        create_app(monitor_settings(filled["url"])),
-        host="127.0.0.1",
-        port=port,
-        log_level="warning",
-    )
-    server = uvicorn.Server(config)
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 20
-    while not server.started and time.monotonic() < deadline:
-        time.sleep(0.05)
-    assert server.started, "uvicorn did not start"
-    try:
-        yield f"http://127.0.0.1:{port}"
-    finally:
-        server.should_exit = True
-        thread.join(timeout=10)
+    """The app with API keys required (the default) on the filled store, under uvicorn."""
+    filled["scorer_key"] = create_key_in_store(filled["url"], role="scorer", name="viewer").key
+    with live_server(monitor_settings(filled["url"], auth_required=True)) as url:
+        yield url
 
 
 @pytest.mark.browser
@@ -115,8 +96,22 @@ def test_dashboard_in_headless_chromium(
     with sync_playwright() as pw:
         browser = pw.chromium.launch(executable_path=CHROMIUM, args=ARGS)
         try:
-            page = browser.new_page(viewport={"width": 1280, "height": 900})
+            context = browser.new_context(viewport={"width": 1280, "height": 900})
+            page = context.new_page()
             page.goto(f"{live_url}/dashboard", wait_until="load")
+            assert page.url.startswith(f"{live_url}/dashboard/sign-in")  # no session yet
+            page.fill("#api_key", "rk_not-a-key-of-this-service")
+            page.click("#sign-in-button")
+            assert "not known to this service" in page.inner_text("#sign-in-error")
+            page.fill("#api_key", filled["scorer_key"])
+            page.click("#sign-in-button")
+            page.wait_for_selector("#models")
+            assert page.url == f"{live_url}/dashboard"
+            assert page.inner_text("#signed-in-as") == "viewer"
+            (cookie,) = context.cookies()
+            assert cookie["httpOnly"] and cookie["sameSite"] == "Strict"
+            assert filled["scorer_key"] not in cookie["value"]  # a signed token, not the key
+            assert page.evaluate("document.cookie") == ""  # HttpOnly: scripts cannot read it
             page.click(f"text={MODEL}")
             page.wait_for_selector("#model-name")
             assert page.inner_text("#model-name") == MODEL
@@ -137,5 +132,10 @@ def test_dashboard_in_headless_chromium(
             )
             assert css_ok == "rgb(35, 48, 61)"  # the stylesheet loaded
             page.screenshot(path=str(Path("/tmp") / "riskfit-dashboard.png"), full_page=True)
+            page.click("#sign-out button")
+            page.wait_for_selector("#sign-in")
+            assert context.cookies() == []
+            page.goto(f"{live_url}/dashboard/{MODEL}", wait_until="load")
+            assert page.url.startswith(f"{live_url}/dashboard/sign-in?next=/dashboard/{MODEL}")
         finally:
             browser.close()
