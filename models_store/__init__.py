@@ -9,6 +9,7 @@ from models_store._types import UTCDateTime, utcnow
 from models_store.alerts import add_alert, find_open_alert, list_alerts, resolve_alert
 from models_store.audit import list_events, record
 from models_store.champions import champion_history, current_champion, set_champion
+from models_store.columns import ScoreColumns, scores_with_outcomes
 from models_store.db import (
     alembic_config,
     check_integrity,
@@ -56,7 +57,7 @@ from models_store.refits import (
     start_refit_run,
 )
 from models_store.scores import (
-    ScoreColumns,
+    add_score_batch,
     add_scores,
     count_scores,
     find_scores_by_keys,
@@ -64,7 +65,6 @@ from models_store.scores import (
     get_scores,
     new_score_id,
     score_inputs,
-    scores_with_outcomes,
 )
 from models_store.versions import (
     add_version,
@@ -94,6 +94,7 @@ __all__ = [
     "acquire_refit_lock",
     "add_alert",
     "add_outcomes",
+    "add_score_batch",
     "add_scores",
     "add_version",
     "alembic_config",

@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 from collections.abc import Iterator, Sequence
-from typing import TypeVar
+from datetime import datetime
+from typing import Any, TypeVar
 
-from sqlalchemy import func, select
+from sqlalchemy import ColumnElement, Select, and_, func, select
 from sqlalchemy.orm import InstrumentedAttribute, Session
 
-__all__ = ["CHUNK", "chunks", "next_number"]
+__all__ = ["CHUNK", "chunks", "next_number", "window"]
 
 T = TypeVar("T")
 
@@ -35,3 +36,29 @@ def next_number(
     """
     current = session.scalar(select(func.max(column)).where(owner == owner_id))
     return int(current or 0) + 1
+
+
+def window(
+    stmt: Select[Any],
+    *,
+    time_col: InstrumentedAttribute[datetime],
+    model_col: InstrumentedAttribute[int],
+    version_col: InstrumentedAttribute[int],
+    model_id: int,
+    since: datetime | None,
+    until: datetime | None,
+    version: int | None,
+) -> Select[Any]:
+    """``stmt`` restricted to one model, the half-open time window ``[since, until)`` and
+    optionally one version."""
+    for name, bound in (("since", since), ("until", until)):
+        if bound is not None and bound.tzinfo is None:
+            raise ValueError(f"{name}={bound.isoformat()} is naive; pass an aware UTC datetime")
+    conditions: list[ColumnElement[bool]] = [model_col == model_id]
+    if since is not None:
+        conditions.append(time_col >= since)
+    if until is not None:
+        conditions.append(time_col < until)
+    if version is not None:
+        conditions.append(version_col == version)
+    return stmt.where(and_(*conditions))

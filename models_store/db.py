@@ -73,6 +73,8 @@ SqliteSync = Literal["NORMAL", "FULL"]
 _BEGIN_OPTION = "riskfit_sqlite_begin"
 _WRITING = "riskfit_sqlite_writing"  # DBAPI connection info: this transaction holds the lock
 _WRITE_PREFIXES = ("INSERT", "UPDATE", "DELETE", "REPLACE", "CREATE", "DROP", "ALTER", "SAVEPOINT")
+SQLITE_CACHE_KIB = 32_768  # page cache per connection (SQLite's default is 2 MiB)
+SQLITE_MMAP_BYTES = 256 * 1024 * 1024
 _MIGRATION_LOCK_KEY = 0x7269736B  # arbitrary constant for pg_advisory_xact_lock during upgrades
 
 
@@ -128,6 +130,8 @@ def _install_sqlite_hooks(engine: Engine, busy_timeout_ms: int, synchronous: Sql
             cursor.execute("PRAGMA foreign_keys = ON")
             cursor.execute("PRAGMA journal_mode = WAL")
             cursor.execute(f"PRAGMA synchronous = {synchronous}")
+            cursor.execute(f"PRAGMA cache_size = -{SQLITE_CACHE_KIB}")  # negative: KiB
+            cursor.execute(f"PRAGMA mmap_size = {SQLITE_MMAP_BYTES}")  # reads share OS pages
         finally:
             cursor.close()
 

@@ -202,14 +202,21 @@ class Score(Base):
 class Outcome(Base):
     """The observed 0/1 outcome of a score; at most one per score (idempotent ingestion).
 
-    ``model_id`` repeats the score's model so that windows by ``observed_at`` use an index
-    without scanning the score log.
+    The row also carries a copy of its score's prediction (``version_number``, ``eta``,
+    ``se_eta``, ``probability``, ``scored_at`` = the score's ``created_at``). Scores never
+    change, so the copy cannot go stale, and calibration over a window then reads this one
+    table sequentially instead of joining a million random score-id look-ups. ``model_id``
+    repeats the score's model for the same reason.
     """
 
     __tablename__ = "outcome"
     __table_args__ = (
         CheckConstraint("outcome IN (0, 1)", name="outcome_binary"),
+        ForeignKeyConstraint(
+            ["model_id", "version_number"], ["model_version.model_id", "model_version.number"]
+        ),
         Index(None, "model_id", "observed_at"),
+        Index(None, "model_id", "scored_at"),
     )
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
@@ -218,6 +225,11 @@ class Outcome(Base):
     outcome: Mapped[int] = mapped_column(SmallInteger)
     observed_at: Mapped[datetime]
     received_at: Mapped[datetime] = mapped_column(default=utcnow)
+    version_number: Mapped[int]
+    eta: Mapped[float] = mapped_column(Float)
+    se_eta: Mapped[float] = mapped_column(Float)
+    probability: Mapped[float] = mapped_column(Float)
+    scored_at: Mapped[datetime]
 
 
 class AlertRecord(Base):

@@ -5,9 +5,9 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
-from typing import Any
+from typing import Any, cast
 
-from sqlalchemy import insert, select
+from sqlalchemy import Table, insert, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -17,6 +17,8 @@ from models_store.orm import Outcome, RiskModel, Score
 from service.errors import DataError
 
 __all__ = ["OutcomeItem", "OutcomeResult", "add_outcomes", "get_outcome"]
+
+_TABLE = cast(Table, Outcome.__table__)  # Core inserts, no ORM bookkeeping
 
 MAX_ATTEMPTS = 5
 
@@ -50,6 +52,24 @@ class _Item:
     key: str | None
     outcome: int
     observed_at: datetime | None
+
+
+def _row(
+    model: RiskModel, score_id: str, item: _Item, snap: _Snapshot, now: datetime
+) -> dict[str, Any]:
+    _key, version, eta, se_eta, probability, scored_at = snap
+    return {
+        "score_id": score_id,
+        "model_id": model.id,
+        "outcome": item.outcome,
+        "observed_at": item.observed_at or now,
+        "received_at": now,
+        "version_number": version,
+        "eta": eta,
+        "se_eta": se_eta,
+        "probability": probability,
+        "scored_at": scored_at,
+    }
 
 
 def _parse(items: Sequence[Mapping[str, Any]]) -> list[_Item]:
@@ -96,63 +116,77 @@ def add_outcomes(
     """
     parsed = _parse(items)
     now = received_at or utcnow()
-    resolved, unknown = _resolve(session, model, parsed)
+    resolved, unknown, snapshots = _resolve(session, model, parsed)
     for _attempt in range(MAX_ATTEMPTS):
         stored = _stored_outcomes(session, [sid for sid, _ in resolved])
         result = _classify(resolved, stored, unknown)
         accepted = {a.index for a in result.accepted}
         rows = [
-            {
-                "score_id": sid,
-                "model_id": model.id,
-                "outcome": item.outcome,
-                "observed_at": item.observed_at or now,
-                "received_at": now,
-            }
+            _row(model, sid, item, snapshots[sid], now)
             for sid, item in resolved
             if item.index in accepted
         ]
         rows.sort(key=lambda r: r["score_id"])  # one lock order for every writer: no deadlocks
         try:
             with session.begin_nested():
+                conn = session.connection()  # Core executemany, as for scores
                 for part in chunks(rows):
-                    session.execute(insert(Outcome), list(part))
+                    conn.execute(insert(_TABLE), list(part))
         except IntegrityError:
             continue  # someone stored one of these meanwhile: look again
         return result
     raise RuntimeError(f"outcome ingestion kept colliding after {MAX_ATTEMPTS} attempts")
 
 
+_Snapshot = tuple[str | None, int, float, float, float, datetime]  # key, version, eta, se, p, at
+
+
 def _resolve(
     session: Session, model: RiskModel, parsed: list[_Item]
-) -> tuple[list[tuple[str, _Item]], list[OutcomeItem]]:
-    """Map each item to a stored score id of ``model``; the rest are unknown."""
+) -> tuple[list[tuple[str, _Item]], list[OutcomeItem], dict[str, _Snapshot]]:
+    """Map each item to a stored score of ``model``; the rest are unknown.
+
+    Look-ups by id use the primary key alone (the model is checked in Python): a condition on
+    ``model_id`` could lead the planner onto the (model_id, created_at) index and a scan.
+    """
+    cols = (
+        Score.id,
+        Score.model_id,
+        Score.key,
+        Score.version_number,
+        Score.eta,
+        Score.se_eta,
+        Score.probability,
+        Score.created_at,
+    )
+    snapshots: dict[str, _Snapshot] = {}
+
+    def collect(stmt: Any) -> None:
+        for sid, model_id, *rest in session.execute(stmt):
+            if model_id == model.id:
+                snapshots[sid] = tuple(rest)
+
     ids = sorted({p.score_id for p in parsed if p.score_id is not None})
-    keys = sorted({p.key for p in parsed if p.key is not None})
-    by_id: dict[str, str | None] = {}
     for part in chunks(ids):
-        stmt = select(Score.id, Score.key).where(Score.model_id == model.id, Score.id.in_(part))
-        by_id.update({sid: key for sid, key in session.execute(stmt)})
-    by_key: dict[str, str] = {}
+        collect(select(*cols).where(Score.id.in_(part)))
+    keys = sorted({p.key for p in parsed if p.key is not None and p.score_id is None})
     for part in chunks(keys):
-        stmt = select(Score.key, Score.id).where(Score.model_id == model.id, Score.key.in_(part))
-        by_key.update({key: sid for key, sid in session.execute(stmt) if key is not None})
+        collect(select(*cols).where(Score.model_id == model.id, Score.key.in_(part)))
+    by_key = {snap[0]: sid for sid, snap in snapshots.items() if snap[0] is not None}
     resolved: list[tuple[str, _Item]] = []
     unknown: list[OutcomeItem] = []
     for p in parsed:
-        sid = p.score_id if p.score_id in by_id else None
-        if p.score_id is None and p.key in by_key:
-            sid = by_key[p.key]
+        sid = p.score_id if p.score_id is not None else by_key.get(str(p.key))
         reason = None
-        if sid is None:
+        if sid is None or sid not in snapshots:
             reason = "no score of this model has this score_id or key"
-        elif p.key is not None and p.score_id is not None and by_id.get(sid) != p.key:
+        elif p.key is not None and snapshots[sid][0] != p.key:
             reason = "score_id and key name different scores"
         if reason is None and sid is not None:
             resolved.append((sid, p))
         else:
             unknown.append(OutcomeItem(p.index, p.score_id, p.key, p.outcome, reason=reason))
-    return resolved, unknown
+    return resolved, unknown, snapshots
 
 
 def _stored_outcomes(session: Session, score_ids: Sequence[str]) -> dict[str, int]:

@@ -1,21 +1,20 @@
-"""The score log: bulk insert, look-ups, and columnar reads joined with outcomes."""
+"""The score log: bulk insert, look-ups, counts (columnar reads live in models_store.columns)."""
 
 from __future__ import annotations
 
 import uuid
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
 from datetime import datetime
-from typing import Any, Literal
+from typing import Any, cast
 
-import numpy as np
-from sqlalchemy import BigInteger, ColumnElement, Select, and_, cast, func, insert, select
+from sqlalchemy import Select, Table, func, insert, select
 from sqlalchemy.exc import IntegrityError
-from sqlalchemy.orm import InstrumentedAttribute, Session
+from sqlalchemy.orm import Session
 
 from models_store._types import utcnow
-from models_store._util import chunks
-from models_store.orm import Outcome, RiskModel, Score
+from models_store._util import chunks, window
+from models_store.columns import ScoreColumns, scores_with_outcomes  # re-exported
+from models_store.orm import RiskModel, Score
 from models_store.versions import require_version
 from service.errors import DuplicateKeyError
 
@@ -32,7 +31,7 @@ __all__ = [
     "scores_with_outcomes",
 ]
 
-WindowOn = Literal["score", "outcome"]
+_TABLE = cast(Table, Score.__table__)  # Core inserts, no ORM bookkeeping
 
 
 def new_score_id() -> str:
@@ -78,7 +77,7 @@ def add_scores(
         with session.begin_nested():
             conn = session.connection()  # Core executemany: no ORM bookkeeping per row
             for part in chunks(ordered):
-                conn.execute(insert(Score.__table__), list(part))
+                conn.execute(insert(_TABLE), list(part))
     except IntegrityError as error:  # a key taken concurrently (PostgreSQL)
         keys = [str(v["key"]) for v in values if v["key"] is not None]
         taken = _existing_keys(session, model, keys)
@@ -113,7 +112,7 @@ def add_score_batch(
     if keys is not None:
         _refuse_duplicate_keys(session, model, rows_for_errors)
     conn = session.connection()
-    table = Score.__table__
+    table = _TABLE
     at_proc = table.c.created_at.type.bind_processor(conn.dialect)
     at = at_proc(created_at) if at_proc is not None else created_at
     if conn.dialect.name == "sqlite" and isinstance(at, datetime):
@@ -218,132 +217,18 @@ def get_scores(*, session: Session, model: RiskModel, score_ids: Sequence[str]) 
     return found
 
 
-# --- columnar reads ----------------------------------------------------------------------------
+# --- reads for monitoring -------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class ScoreColumns:
-    """Scores joined with their outcomes, as arrays of shape (n,) in score-time order.
-
-    ``created_at`` and ``observed_at`` are ``datetime64[us]`` in UTC (numpy has no zones).
-    """
-
-    eta: np.ndarray
-    se_eta: np.ndarray
-    probability: np.ndarray
-    outcome: np.ndarray  # int8, 0/1
-    created_at: np.ndarray
-    observed_at: np.ndarray
-    version: np.ndarray  # int32
-
-    @property
-    def n(self) -> int:
-        return int(self.eta.shape[0])
-
-
-def _epoch_micros(column: InstrumentedAttribute[datetime], dialect: str) -> ColumnElement[int]:
-    """Microseconds since 1970-01-01 UTC, computed exactly in the database.
-
-    SQLite keeps the time as text ``YYYY-MM-DD HH:MM:SS.ffffff`` (SQLAlchemy's storage format):
-    whole seconds from ``strftime('%s')`` plus the six fraction digits. PostgreSQL: ``extract``
-    gives exact numeric seconds. Values (~1.7e15) are exact in float64, below 2**53.
-    """
-    if dialect == "sqlite":
-        seconds = cast(func.strftime("%s", column), BigInteger)
-        return seconds * 1_000_000 + cast(func.substr(column, 21, 6), BigInteger)
-    return cast(func.extract("epoch", column) * 1_000_000, BigInteger)
-
-
-def _window(
-    stmt: Select[Any],
-    *,
-    time_col: InstrumentedAttribute[datetime],
-    model_col: InstrumentedAttribute[int],
-    version_col: InstrumentedAttribute[int],
-    model: RiskModel,
-    since: datetime | None,
-    until: datetime | None,
-    version: int | None,
-) -> Select[Any]:
-    conditions: list[ColumnElement[bool]] = [model_col == model.id]
-    if since is not None:
-        conditions.append(time_col >= since)
-    if until is not None:
-        conditions.append(time_col < until)
-    if version is not None:
-        conditions.append(version_col == version)
-    return stmt.where(and_(*conditions))
-
-
-def _score_window(stmt: Select[Any], **kw: Any) -> Select[Any]:
-    return _window(
+def _score_window(stmt: Select[Any], *, model: RiskModel, **kw: Any) -> Select[Any]:
+    return window(
         stmt,
         time_col=Score.created_at,
         model_col=Score.model_id,
         version_col=Score.version_number,
+        model_id=model.id,
         **kw,
     )
-
-
-def scores_with_outcomes(
-    *,
-    session: Session,
-    model: RiskModel,
-    since: datetime | None = None,
-    until: datetime | None = None,
-    on: WindowOn = "score",
-    version: int | None = None,
-) -> ScoreColumns:
-    """Every score of ``model`` that has an outcome, within ``[since, until)``.
-
-    ``on="score"`` windows (and orders) by the score's ``created_at``, ``on="outcome"`` by the
-    outcome's ``observed_at``; ``version`` keeps one version's scores. One query on the outcome
-    table alone (it carries each score's prediction); the driver's tuples go straight into one
-    float64 array and are put in time order by a stable numpy sort (no ORM objects, no
-    datetime objects, no SQL sort). Ties in time keep no particular order.
-    """
-    if on not in ("score", "outcome"):
-        raise ValueError(f"on must be 'score' or 'outcome', not {on!r}")
-    dialect = session.get_bind().dialect.name
-    stmt = select(
-        Outcome.eta,
-        Outcome.se_eta,
-        Outcome.probability,
-        Outcome.outcome,
-        _epoch_micros(Outcome.scored_at, dialect),
-        _epoch_micros(Outcome.observed_at, dialect),
-        Outcome.version_number,
-    )
-    stmt = _window(
-        stmt,
-        time_col=Outcome.scored_at if on == "score" else Outcome.observed_at,
-        model_col=Outcome.model_id,
-        version_col=Outcome.version_number,
-        model=model,
-        since=since,
-        until=until,
-        version=version,
-    )
-    # Core execution on the session's connection: plain driver tuples, no ORM row processing.
-    result = session.connection().execute(stmt)
-    raw = result.cursor.fetchall() if result.cursor is not None else []
-    result.close()
-    table = np.array(raw, dtype=np.float64).reshape(-1, 7)
-    order = np.argsort(table[:, 4 if on == "score" else 5], kind="stable")
-    table = table[order]
-    return ScoreColumns(
-        eta=np.ascontiguousarray(table[:, 0]),
-        se_eta=np.ascontiguousarray(table[:, 1]),
-        probability=np.ascontiguousarray(table[:, 2]),
-        outcome=table[:, 3].astype(np.int8),
-        created_at=_to_datetime64(table[:, 4]),
-        observed_at=_to_datetime64(table[:, 5]),
-        version=table[:, 6].astype(np.int32),
-    )
-
-
-def _to_datetime64(micros: np.ndarray) -> np.ndarray:
-    return micros.astype(np.int64).view("datetime64[us]")
 
 
 def count_scores(

@@ -105,15 +105,17 @@ def test_keys_are_unique_per_model_not_globally(session: Session, model: RiskMod
 def test_scores_with_outcomes_returns_aligned_columns(session: Session, model: RiskModel) -> None:
     add_version(session=session, model=model, **version_fields(parent_number=1))
     rows = _rows(6)
+    # one score at a time, each at its own time: scores 0-2 by version 1, 3-5 by version 2
+    created = [T0 + timedelta(days=0 if i < 3 else 10, minutes=i) for i in range(6)]
     ids = [
-        *add_scores(session=session, model=model, version_number=1, rows=rows[:3], created_at=T0),
-        *add_scores(
+        add_scores(
             session=session,
             model=model,
-            version_number=2,
-            rows=rows[3:],
-            created_at=T0 + timedelta(days=10),
-        ),
+            version_number=1 if i < 3 else 2,
+            rows=[rows[i]],
+            created_at=created[i],
+        )[0]
+        for i in range(6)
     ]
     observed = [T0 + timedelta(days=40 + i) for i in range(6)]
     items = [
@@ -132,16 +134,12 @@ def test_scores_with_outcomes_returns_aligned_columns(session: Session, model: R
     np.testing.assert_allclose(cols.probability, [rows[i]["probability"] for i in keep], rtol=0)
     assert cols.outcome.tolist() == [0, 1, 0, 1, 1] and cols.outcome.dtype == np.int8
     assert cols.version.tolist() == [1, 1, 1, 2, 2]
-    # SQLite's julianday has millisecond resolution: compare to the millisecond.
-    want_created = np.array(
-        [T0.replace(tzinfo=None)] * 3 + [(T0 + timedelta(days=10)).replace(tzinfo=None)] * 2,
-        dtype="datetime64[ms]",
-    )
-    assert (cols.created_at.astype("datetime64[ms]") == want_created).all()
+    want_created = np.array([created[i].replace(tzinfo=None) for i in keep], dtype="datetime64[us]")
+    assert (cols.created_at == want_created).all()
     want_observed = np.array(
-        [observed[i].replace(tzinfo=None) for i in keep], dtype="datetime64[ms]"
+        [observed[i].replace(tzinfo=None) for i in keep], dtype="datetime64[us]"
     )
-    assert (cols.observed_at.astype("datetime64[ms]") == want_observed).all()
+    assert (cols.observed_at == want_observed).all()
 
     by_score = scores_with_outcomes(
         session=session, model=model, since=T0 + timedelta(days=1), on="score"
@@ -151,6 +149,8 @@ def test_scores_with_outcomes_returns_aligned_columns(session: Session, model: R
         session=session, model=model, since=observed[1], until=observed[3], on="outcome"
     )
     assert by_outcome.outcome.tolist() == [1, 0]  # items 1 and 2, half-open window
+    late_first = scores_with_outcomes(session=session, model=model, on="outcome")
+    assert np.all(np.diff(late_first.observed_at.astype(np.int64)) >= 0)
     assert scores_with_outcomes(session=session, model=model, version=1).n == 3
     empty = scores_with_outcomes(session=session, model=model, since=T0 + timedelta(days=999))
     assert empty.n == 0 and empty.eta.dtype == np.float64

@@ -217,7 +217,18 @@ def upgrade() -> None:
         sa.Column("outcome", sa.SmallInteger(), nullable=False),
         sa.Column("observed_at", UTC_TIMESTAMP, nullable=False),
         sa.Column("received_at", UTC_TIMESTAMP, nullable=False),
+        # copy of the score's prediction, so calibration reads this table alone
+        sa.Column("version_number", sa.Integer(), nullable=False),
+        sa.Column("eta", sa.Float(), nullable=False),
+        sa.Column("se_eta", sa.Float(), nullable=False),
+        sa.Column("probability", sa.Float(), nullable=False),
+        sa.Column("scored_at", UTC_TIMESTAMP, nullable=False),
         sa.CheckConstraint("outcome IN (0, 1)", name=op.f("ck_outcome_outcome_binary")),
+        sa.ForeignKeyConstraint(
+            ["model_id", "version_number"],
+            ["model_version.model_id", "model_version.number"],
+            name=op.f("fk_outcome_model_id_version_number_model_version"),
+        ),
         sa.ForeignKeyConstraint(
             ["model_id"], ["risk_model.id"], name=op.f("fk_outcome_model_id_risk_model")
         ),
@@ -226,10 +237,12 @@ def upgrade() -> None:
         sa.UniqueConstraint("score_id", name=op.f("uq_outcome_score_id")),
     )
     op.create_index(op.f("ix_outcome_model_id_observed_at"), "outcome", ["model_id", "observed_at"])
+    op.create_index(op.f("ix_outcome_model_id_scored_at"), "outcome", ["model_id", "scored_at"])
 
 
 def downgrade() -> None:
     op.drop_index(op.f("ix_outcome_model_id_observed_at"), table_name="outcome")
+    op.drop_index(op.f("ix_outcome_model_id_scored_at"), table_name="outcome")
 
     op.drop_table("outcome")
     op.drop_index(op.f("ix_score_model_id_created_at"), table_name="score")
