@@ -149,7 +149,7 @@ def new_score_ids(n: int) -> list[str]:
     nibbles[:, 1::2] = raw & 0x0F
     text = np.full((n, 36), ord("-"), dtype=np.uint8)
     text[:, _HEX_AT] = _HEX[nibbles]
-    return text.view("S36").ravel().astype("U36").tolist()  # type: ignore[no-any-return]
+    return text.view("S36").ravel().astype("U36").tolist()
 
 
 def _uuid7_text(ms: int) -> str:
