@@ -18,6 +18,7 @@ import threading
 import time
 import uuid
 from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
 from typing import Any
 
 import httpx
@@ -25,7 +26,7 @@ import pytest
 from sqlalchemy.engine import Engine
 
 from models_store.orm import ModelVersion, Outcome
-from tests.reliability._checks import outcome_map, store_problems, table_count
+from tests.reliability._checks import outcome_map, score_ids, store_problems, table_count
 from tests.reliability._server import ServerProcess
 from tests.reliability._workload import (
     SPEC,
@@ -107,6 +108,70 @@ def test_kill_during_large_fit_leaves_no_half_written_version(
     assert store_problems(engine) == []
 
 
+@dataclass
+class Stream:
+    """What a request stream cut by kill -9 was told: acknowledged bodies and their answers."""
+
+    acked: list[tuple[Any, dict[str, Any]]] = field(default_factory=list)
+    in_flight: list[Any] = field(default_factory=list)
+    failures: list[str] = field(default_factory=list)
+
+
+def stream_and_kill(server: ServerProcess, path: str, bodies: list[Any]) -> Stream:
+    """POST ``bodies`` one after another; kill -9 the server once a third were acknowledged."""
+    out = Stream()
+
+    def send() -> None:
+        with httpx.Client(base_url=server.base_url, timeout=30.0) as client:
+            for body in bodies:
+                out.in_flight[:] = [body]
+                try:
+                    response = client.post(path, json=body)
+                except httpx.TransportError:
+                    return  # the server died under us
+                if not response.is_success:
+                    out.failures.append(f"{response.status_code}: {response.text[:300]}")
+                    return
+                out.acked.append((body, response.json()))
+
+    thread = threading.Thread(target=send, daemon=True)
+    thread.start()
+    deadline = time.monotonic() + 60.0
+    while len(out.acked) < len(bodies) // 3 and time.monotonic() < deadline and thread.is_alive():
+        time.sleep(0.002)
+    server.kill()
+    thread.join(30.0)
+    assert out.failures == []
+    assert 0 < len(out.acked) < len(bodies), "the kill missed the stream"
+    return out
+
+
+def test_kill_during_score_stream_keeps_every_returned_score_id(
+    database_url: str,
+    servers: Callable[..., ServerProcess],
+    engine_for: Callable[[str], Engine],
+) -> None:
+    server = servers(database_url, name="scores")
+    with httpx.Client(base_url=server.base_url, timeout=60.0) as client:
+        fit_small(client, "pipes")
+    pool = records(600, seed=5)
+    bodies = [{"records": pool[i : i + 1 + i % 7]} for i in range(0, 540, 2)]
+    cut = stream_and_kill(server, "/risk-models/pipes/scores", bodies)
+    engine = engine_for(database_url)
+    server.start()
+    assert store_problems(engine) == []
+    returned = [s["score_id"] for _body, answer in cut.acked for s in answer["scores"]]
+    logged = score_ids(engine)
+    lost = set(returned) - logged
+    extra = len(logged) - len(returned)
+    print(
+        f"\nscore stream crash: {len(cut.acked)} requests ({len(returned)} score ids) "
+        f"answered, {len(lost)} lost, {extra} logged from the request in flight"
+    )
+    assert lost == set()
+    assert 0 <= extra <= len(cut.in_flight[0]["records"])
+
+
 def test_kill_during_outcome_stream_keeps_every_acknowledged_outcome(
     database_url: str,
     servers: Callable[..., ServerProcess],
@@ -116,53 +181,27 @@ def test_kill_during_outcome_stream_keeps_every_acknowledged_outcome(
     with httpx.Client(base_url=server.base_url, timeout=60.0) as client:
         fit_small(client, "pipes")
         ids = score_all(client, "pipes", records(3000, seed=5))
-    batches = list(outcome_batches(ids, size=50, seed=6))
-    acked: list[list[dict[str, Any]]] = []
-    in_flight: list[list[dict[str, Any]]] = []
-    failures: list[str] = []
-
-    def stream() -> None:
-        with httpx.Client(base_url=server.base_url, timeout=30.0) as client:
-            for batch in batches:
-                in_flight[:] = [batch]
-                try:
-                    response = client.post("/risk-models/pipes/outcomes", json={"outcomes": batch})
-                except httpx.TransportError:
-                    return  # the server died under us
-                if response.is_success:
-                    acked.append(batch)
-                else:
-                    failures.append(f"{response.status_code}: {response.text[:300]}")
-                    return
-
-    thread = threading.Thread(target=stream, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 60.0
-    while len(acked) < len(batches) // 3 and time.monotonic() < deadline and thread.is_alive():
-        time.sleep(0.005)
-    server.kill()
-    thread.join(30.0)
-    assert failures == []
-    assert 0 < len(acked) < len(batches), "the kill missed the stream"
+    batches = [{"outcomes": b} for b in outcome_batches(ids, size=50, seed=6)]
+    cut = stream_and_kill(server, "/risk-models/pipes/outcomes", batches)
 
     engine = engine_for(database_url)
     server.start()
     assert store_problems(engine) == []
     stored, rows_per_score = outcome_map(engine)
-    sent = {o["score_id"]: o["outcome"] for batch in acked for o in batch}
+    sent = {o["score_id"]: o["outcome"] for body, _answer in cut.acked for o in body["outcomes"]}
     missing = [sid for sid in sent if stored.get(sid) != sent[sid]]
     unacked = set(stored) - set(sent)
     print(
-        f"\noutcome stream crash: {len(acked)} batches ({len(sent)} outcomes) acknowledged, "
+        f"\noutcome stream crash: {len(cut.acked)} batches ({len(sent)} outcomes) acknowledged, "
         f"{len(missing)} lost, {len(unacked)} stored from the batch in flight"
     )
     assert missing == []
     assert max(rows_per_score.values()) == 1
-    assert unacked <= {o["score_id"] for batch in in_flight for o in batch}
+    assert unacked <= {o["score_id"] for o in cut.in_flight[0]["outcomes"]}
 
     with httpx.Client(base_url=server.base_url, timeout=30.0) as client:
-        for batch in batches:  # resend everything: duplicates are answered, not stored twice
-            response = client.post("/risk-models/pipes/outcomes", json={"outcomes": batch})
+        for body in batches:  # resend everything: duplicates are answered, not stored twice
+            response = client.post("/risk-models/pipes/outcomes", json=body)
             assert response.status_code == 200, response.text
     stored, rows_per_score = outcome_map(engine)
     assert table_count(engine, Outcome) == len(ids) == len(stored)
