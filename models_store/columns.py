@@ -26,7 +26,7 @@ from sqlalchemy.orm import InstrumentedAttribute, Session
 from models_store._util import window
 from models_store.orm import Outcome, RiskModel
 
-__all__ = ["ScoreColumns", "WindowOn", "scores_with_outcomes"]
+__all__ = ["ScoreColumns", "WindowOn", "epoch_micros", "scores_with_outcomes"]
 
 WindowOn = Literal["score", "outcome"]
 
@@ -69,7 +69,7 @@ class ScoreColumns:
         return int(self.eta.shape[0])
 
 
-def _epoch_micros(column: InstrumentedAttribute[datetime], dialect: str) -> ColumnElement[int]:
+def epoch_micros(column: InstrumentedAttribute[datetime], dialect: str) -> ColumnElement[int]:
     """Microseconds since 1970-01-01 UTC, computed exactly in the database.
 
     SQLite keeps the time as text ``YYYY-MM-DD HH:MM:SS[.ffffff]``: whole seconds from
@@ -106,8 +106,8 @@ def scores_with_outcomes(
         cast(Outcome.se_eta, Float(53)),
         cast(Outcome.probability, Float(53)),
         cast(Outcome.outcome, SmallInteger),
-        _epoch_micros(Outcome.scored_at, dialect),
-        _epoch_micros(Outcome.observed_at, dialect),
+        epoch_micros(Outcome.scored_at, dialect),
+        epoch_micros(Outcome.observed_at, dialect),
         cast(Outcome.version_number, Integer),
     )
     stmt = window(

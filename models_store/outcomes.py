@@ -14,7 +14,7 @@ from sqlalchemy.orm import Session
 from models_store._types import utcnow
 from models_store._util import chunks
 from models_store.orm import Outcome, RiskModel, Score
-from service.errors import DataError
+from service.errors import ConflictError, DataError
 
 __all__ = ["OutcomeItem", "OutcomeResult", "add_outcomes", "get_outcome"]
 
@@ -135,7 +135,11 @@ def add_outcomes(
         except IntegrityError:
             continue  # someone stored one of these meanwhile: look again
         return result
-    raise RuntimeError(f"outcome ingestion kept colliding after {MAX_ATTEMPTS} attempts")
+    raise ConflictError(
+        f"outcomes for these scores kept arriving concurrently ({MAX_ATTEMPTS} attempts)",
+        field="outcomes",
+        remedy="retry the request; outcomes are idempotent, so a retry is safe",
+    )
 
 
 _Snapshot = tuple[str | None, int, float, float, float, datetime]  # key, version, eta, se, p, at
