@@ -6,11 +6,9 @@ answers 200, and stops it either gently (SIGTERM) or by ``kill -9`` (SIGKILL, no
 runs: the crash the store must survive). Its stderr goes to a log file in the test's
 ``tmp_path`` so a failed start shows why.
 
-Access control: while the service has no API keys this talks to it anonymously. Once
-``service/security.py`` exists, :func:`auth_env` turns access control off through the
-settings flag the security module documents (``RISKFIT_AUTH_REQUIRED=false``) - these tests
-are about durability, not roles - and :func:`admin_key` can mint a real admin key with
-``riskfit keys create --role admin`` for tests that want the full path.
+Access control: these tests are about durability, not roles, so :func:`auth_env` turns API-key
+checks off through the documented setting ``RISKFIT_AUTH_REQUIRED=false`` (what
+``riskfit serve --no-auth`` sets); the server still binds to 127.0.0.1 only.
 """
 
 from __future__ import annotations
@@ -27,7 +25,7 @@ from types import TracebackType
 
 import httpx
 
-__all__ = ["ServerProcess", "admin_key", "auth_env", "free_port", "riskfit_cli"]
+__all__ = ["ServerProcess", "auth_env", "free_port", "riskfit_cli"]
 
 LOCALHOST = "127.0.0.1"
 READY_TIMEOUT_S = 60.0
@@ -44,8 +42,7 @@ def free_port() -> int:
 
 
 def auth_env() -> dict[str, str]:
-    """Environment that turns API-key checks off for a local test server (a no-op before
-    the security module exists: the service is then open)."""
+    """Environment that turns API-key checks off for a local test server."""
     return {"RISKFIT_AUTH_REQUIRED": "false"}
 
 
@@ -70,17 +67,6 @@ def riskfit_cli(
         timeout=timeout,
         check=False,
     )
-
-
-def admin_key(database_url: str) -> str | None:
-    """A fresh admin key made directly in the database (None while there is no keys command)."""
-    done = riskfit_cli(
-        "keys", "create", "--role", "admin", "--name", "reliability", database_url=database_url
-    )
-    if done.returncode != 0:
-        return None
-    lines = [line.strip() for line in done.stdout.splitlines() if line.strip()]
-    return lines[-1] if lines else None
 
 
 class ServerProcess:
