@@ -1,6 +1,6 @@
 """Benchmark of the store's hot paths (run on demand, not collected by pytest).
 
-    python3 -m tests.store.bench_store [--rows 1000000] [--url sqlite:////tmp/b.db | postgresql+psycopg://...]
+    python3 -m tests.benchmarks.bench_store [--rows 1000000] [--url sqlite:////tmp/b.db | postgresql+psycopg://...]
 
 Prints seconds for: bulk score logging (``add_scores``), outcome ingestion (``add_outcomes``) and
 the calibration read (``scores_with_outcomes``), with the read compared to two peers measured in
