@@ -14,15 +14,35 @@ from datetime import datetime
 from typing import Any
 
 import numpy as np
+import orjson
+from sqlalchemy import Text, cast, select
 from sqlalchemy.orm import Session
 
-from models_store.orm import RiskModel
-from models_store.scores import score_inputs
+from models_store.orm import RiskModel, Score
 from models_store.versions import get_version
 from service.monitoring._json import jsonable
 from service.stats.psi import PSI_MAJOR, PSI_MODERATE, psi, reference_from_dict
 
-__all__ = ["input_drift"]
+__all__ = ["input_drift", "recent_inputs"]
+
+
+def recent_inputs(
+    session: Session, model: RiskModel, version: int, since: datetime | None, limit: int
+) -> list[dict[str, Any]]:
+    """The ``inputs`` of ``version``'s scores created at or after ``since``, oldest first.
+
+    The same rows as :func:`models_store.scores.score_inputs`, fetched as JSON text through
+    the DB-API cursor and parsed with orjson (no per-row ORM or type processing).
+    """
+    stmt = select(cast(Score.inputs, Text)).where(
+        Score.model_id == model.id, Score.version_number == version
+    )
+    if since is not None:
+        stmt = stmt.where(Score.created_at >= since)
+    result = session.connection().execute(stmt.order_by(Score.created_at).limit(limit))
+    raw = result.cursor.fetchall() if result.cursor is not None else []
+    result.close()
+    return [orjson.loads(text) for (text,) in raw]
 
 
 def _values(rows: list[dict[str, Any]], name: str, kind: str) -> tuple[np.ndarray, int]:
@@ -54,9 +74,7 @@ def input_drift(
     if row is None:
         body.update(status="no_version", n=0)
         return body
-    rows = score_inputs(
-        session=session, model=model, since=since, version=version, limit=max_records
-    )
+    rows = recent_inputs(session, model, version, since, max_records)
     body["n"] = len(rows)
     for name, ref_dict in (row.reference_distributions or {}).items():
         if not isinstance(ref_dict, dict) or "kind" not in ref_dict:

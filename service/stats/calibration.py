@@ -10,7 +10,10 @@ Epidemiol 2016; Steyerberg, *Clinical Prediction Models*, 2nd ed. 2019):
   ``[chi2_{a/2}(2O) / 2, chi2_{1-a/2}(2O + 2) / 2] / E``.
 * calibration-in-the-large: intercept a of ``logit P(y=1) = a + logit(p)`` (offset);
   calibration slope: b of ``logit P(y=1) = a' + b logit(p)``; both by maximum likelihood
-  with riskfit's own engine, Wald intervals. (p is clipped into [1e-12, 1 - 1e-12].)
+  (riskfit's own Newton-Raphson for these one- and two-parameter logistic models,
+  :mod:`service.stats._calibration_fit`), Wald intervals. (p is clipped into
+  [1e-12, 1 - 1e-12].) No finite estimate (all outcomes equal, or logit(p) separating them):
+  NaN with ``converged = False``.
 * Brier = mean w (y - p)^2; scaled Brier = 1 - Brier / (ybar (1 - ybar)), ybar = O / sum w;
   log loss = -mean w (y log p + (1 - y) log(1 - p)) (p clipped as above).
 * Hosmer–Lemeshow and reliability groups: see :mod:`service.stats._risk_groups`.
@@ -31,6 +34,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import stats
 
+from service.stats._calibration_fit import fit_intercept, fit_slope
 from service.stats._outcome_arrays import (
     PROB_FLOOR,
     FloatArray,
@@ -49,7 +53,6 @@ from service.stats._risk_groups import (
     reliability_sorted,
 )
 from service.stats.discrimination import AucResult, auc_delong
-from service.stats.fit import fit_logistic
 from service.stats.metrics import brier, log_loss
 from service.stats.smoothing import (
     FlexibleCalibration,
@@ -228,14 +231,12 @@ def calibration_intercept(
 ) -> CalibrationParameter:
     """Calibration-in-the-large: intercept of logit P(y=1) = a + logit(p) (offset)."""
     yy, pp, w = _inputs(y, p, weights)
-    fit = fit_logistic(
-        np.ones((yy.shape[0], 1)), yy, weights=w, offset=clipped_logit(pp), term_names=["intercept"]
-    )
+    fit = fit_intercept(yy, clipped_logit(pp), w)
     return _parameter(
         "calibration-in-the-large",
         "logit P(y=1) = a + offset logit(p)",
-        float(fit.coef[0]),
-        float(fit.std_error[0]),
+        fit.coef[0],
+        fit.std_error[0],
         fit.converged,
         fit.n_obs,
         fit.n_events,
@@ -252,15 +253,14 @@ def calibration_slope(
 ) -> tuple[CalibrationParameter, CalibrationParameter]:
     """(slope b, intercept a') of logit P(y=1) = a' + b logit(p)."""
     yy, pp, w = _inputs(y, p, weights)
-    X = np.column_stack([np.ones(yy.shape[0]), clipped_logit(pp)])
-    fit = fit_logistic(X, yy, weights=w, term_names=["intercept", "logit_p"])
+    fit = fit_slope(yy, clipped_logit(pp), w)
     model = "logit P(y=1) = a + b logit(p)"
     return (
         _parameter(
             "calibration slope",
             model,
-            float(fit.coef[1]),
-            float(fit.std_error[1]),
+            fit.coef[1],
+            fit.std_error[1],
             fit.converged,
             fit.n_obs,
             fit.n_events,
@@ -269,8 +269,8 @@ def calibration_slope(
         _parameter(
             "recalibration intercept",
             model,
-            float(fit.coef[0]),
-            float(fit.std_error[0]),
+            fit.coef[0],
+            fit.std_error[0],
             fit.converged,
             fit.n_obs,
             fit.n_events,
