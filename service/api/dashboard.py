@@ -31,7 +31,7 @@ from service.api.dashboard_session import (
 )
 from service.api.deps import ModelName, Principal, SessionDep, SettingsDep
 from service.api.models import model_public
-from service.api.monitoring import alerts_public, evaluate_drift, thresholds
+from service.api.monitoring import alerts_public, evaluate_drift, outcome_snapshots, thresholds
 from service.dashboard import STATIC_DIR, index_page, model_page, sign_in_page
 from service.errors import RiskfitError
 from service.monitoring import Window, calibration_view
@@ -150,7 +150,10 @@ def dashboard_model(
     info = model_public(session, row)
     champion = info["champion_version"]
     window = Window(version=champion)
-    report = calibration_view(session=session, model=row, window=window, settings=settings)
+    snaps = outcome_snapshots(request)
+    report = calibration_view(
+        session=session, model=row, window=window, settings=settings, snapshots=snaps
+    )
     drift = evaluate_drift(request, session, row, window, "count", None, settings, None)
     history: list[dict[str, Any]] = (
         champion_public(session, row)["history"]

@@ -21,7 +21,14 @@ from service.api.deps import ModelDep, ScorerAccess, SessionDep, SettingsDep
 from service.api.responses import JSONBytes
 from service.config import Settings
 from service.errors import InvalidInputError
-from service.monitoring import LimitCache, Window, alert_public, calibration_view, drift_view
+from service.monitoring import (
+    LimitCache,
+    OutcomeSnapshots,
+    Window,
+    alert_public,
+    calibration_view,
+    drift_view,
+)
 from service.plots import PlotFormat, drift_figure, psi_figure, reliability_figure, render
 from service.schemas.monitoring import AlertList, CalibrationReportPublic, DriftPublic
 
@@ -97,6 +104,15 @@ def _limit_cache(request: Request) -> LimitCache:
     return cache
 
 
+def outcome_snapshots(request: Request) -> OutcomeSnapshots:
+    """The app's in-memory outcome columns per model (see service.monitoring.snapshot)."""
+    with _state_lock:
+        snaps = getattr(request.app.state, "outcome_snapshots", None)
+        if snaps is None:
+            snaps = request.app.state.outcome_snapshots = OutcomeSnapshots()
+    return snaps
+
+
 def _alert_metrics(request: Request) -> tuple[Counter, Gauge]:
     """The alert collectors on the app's own registry (created on first use)."""
     with _state_lock:
@@ -145,6 +161,7 @@ def evaluate_drift(
         settings=settings,
         cache=_limit_cache(request),
         confidence_level=level,
+        snapshots=outcome_snapshots(request),
     )
     raised, open_gauge = _alert_metrics(request)
     for alert in new:
@@ -164,6 +181,7 @@ def evaluate_drift(
     "and the minimum counts, and no measures.",
 )
 def get_calibration(
+    request: Request,
     model: ModelDep,
     session: SessionDep,
     settings: SettingsDep,
@@ -177,6 +195,7 @@ def get_calibration(
         window=window,
         settings=settings,
         confidence_level=confidence_level,
+        snapshots=outcome_snapshots(request),
     )
     return JSONBytes(body)
 
@@ -187,6 +206,7 @@ def get_calibration(
     response_class=Response,
 )
 def get_reliability_plot(
+    request: Request,
     fmt: PlotFormat,
     model: ModelDep,
     session: SessionDep,
@@ -194,7 +214,10 @@ def get_reliability_plot(
     window: WindowDep,
     _: ScorerAccess,
 ) -> Response:
-    body = calibration_view(session=session, model=model, window=window, settings=settings)
+    snaps = outcome_snapshots(request)
+    body = calibration_view(
+        session=session, model=model, window=window, settings=settings, snapshots=snaps
+    )
     return Response(render(reliability_figure(body), fmt), media_type=MEDIA[fmt])
 
 

@@ -12,9 +12,11 @@ from service.monitoring.cusum_monitor import LimitCache
 from service.monitoring.drift import drift_view
 from service.monitoring.outcomes import ingest_outcomes, outcome_status
 from service.monitoring.report import Window, calibration_view
+from service.monitoring.snapshot import OutcomeSnapshots
 
 __all__ = [
     "LimitCache",
+    "OutcomeSnapshots",
     "Window",
     "alert_public",
     "calibration_view",

@@ -1,8 +1,8 @@
 """Domain operation: the drift view - measures over time, CUSUM, input drift, alerts.
 
-    window -> one columnar query -> consecutive windows (:mod:`.windows`)
+    window -> columns (in-memory snapshot or one query) -> consecutive windows (:mod:`.windows`)
            -> CUSUM segment of the serving version (:mod:`.cusum_monitor`; the same columns
-              are reused when the window is the whole history, else one more query)
+              are reused when the window is the whole history, else one more read)
            -> PSI per feature from the start of the latest window (:mod:`.input_drift`)
            -> alert conditions, new ones stored once (:mod:`.alerts`), committed
 
@@ -19,12 +19,13 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from models_store.orm import AlertRecord, RiskModel
-from models_store.scores import ScoreColumns, scores_with_outcomes
+from models_store.scores import ScoreColumns
 from service.config import Settings
 from service.monitoring.alerts import alert_public, conditions, store_new_alerts
 from service.monitoring.cusum_monitor import LimitCache, cusum_segment, cusum_view
 from service.monitoring.input_drift import input_drift
 from service.monitoring.report import Window, counts, fetch_window
+from service.monitoring.snapshot import OutcomeSnapshots
 from service.monitoring.windows import WindowBy, drift_windows
 
 __all__ = ["drift_view"]
@@ -40,13 +41,13 @@ def _segment_columns(
     window: Window,
     version: int | None,
     reset_at: datetime | None,
+    snapshots: OutcomeSnapshots | None,
 ) -> ScoreColumns:
-    """The CUSUM segment's records: a slice of ``cols`` if it covers them, else a query."""
+    """The CUSUM segment's records: a slice of ``cols`` if it covers them, else a read."""
     whole = window.since is None and window.until is None and window.on == "score"
     if not whole or version is None:
-        return scores_with_outcomes(
-            session=session, model=model, since=reset_at, on="score", version=version or -1
-        )
+        segment = Window(since=reset_at, on="score", version=version or -1)
+        return fetch_window(session, model, segment, snapshots)
     keep = cols.version == version
     if reset_at is not None:
         t0 = np.datetime64(reset_at.replace(tzinfo=None), "us")
@@ -64,11 +65,12 @@ def drift_view(
     settings: Settings,
     cache: LimitCache,
     confidence_level: float | None = None,
+    snapshots: OutcomeSnapshots | None = None,
 ) -> tuple[dict[str, Any], list[AlertRecord]]:
     """The JSON-ready drift view and the alerts this evaluation stored (committed)."""
     level = confidence_level or settings.default_confidence_level
     size = size or (settings.drift_window_records if by == "count" else settings.drift_window_days)
-    cols = fetch_window(session, model, window)
+    cols = fetch_window(session, model, window, snapshots)
     t = cols.created_at if window.on == "score" else cols.observed_at
     order = np.argsort(t, kind="stable") if window.on == "outcome" else slice(None)
     y = cols.outcome.astype(np.float64)[order]
@@ -84,7 +86,7 @@ def drift_view(
         confidence_level=level,
     )
     version, reset_at, reason = cusum_segment(session, model, window.version)
-    segment = _segment_columns(session, model, cols, window, version, reset_at)
+    segment = _segment_columns(session, model, cols, window, version, reset_at, snapshots)
     latest_start = windows["items"][-1]["start"] if windows["items"] else None
     psi_since = None if latest_start is None else datetime.fromisoformat(latest_start)
     if psi_since is not None and by == "count":

@@ -1,6 +1,7 @@
 """Domain operation: the calibration report of one window of scored outcomes.
 
-    window (since, until, on, version) -> one columnar query (scores joined with outcomes)
+    window (since, until, on, version) -> columns (the model's in-memory snapshot, see
+    :mod:`.snapshot`, or one columnar query)
     -> service.stats.calibration.calibration_report -> JSON-ready dict
 
 "Not enough outcomes" is an answer, not an error: the body has ``status:
@@ -25,6 +26,7 @@ from models_store.scores import ScoreColumns, scores_with_outcomes
 from service.config import Settings
 from service.errors import NotEnoughOutcomesError
 from service.monitoring._json import jsonable
+from service.monitoring.snapshot import OutcomeSnapshots
 from service.stats.calibration import calibration_report
 
 __all__ = ["Window", "calibration_view", "fetch_window", "report_measures"]
@@ -45,8 +47,16 @@ class Window:
         return {"since": self.since, "until": self.until, "on": self.on, "version": self.version}
 
 
-def fetch_window(session: Session, model: RiskModel, window: Window) -> ScoreColumns:
-    """One query: the window's scores that have outcomes, as columns."""
+def fetch_window(
+    session: Session, model: RiskModel, window: Window, snapshots: OutcomeSnapshots | None = None
+) -> ScoreColumns:
+    """The window's scores that have outcomes, as columns: from the model's in-memory
+    snapshot when ``snapshots`` is given (brought up to date first), else one query."""
+    if snapshots is not None:
+        snap = snapshots.get(session, model)
+        return snap.columns(
+            since=window.since, until=window.until, on=window.on, version=window.version
+        )
     return scores_with_outcomes(
         session=session,
         model=model,
@@ -117,9 +127,10 @@ def calibration_view(
     window: Window,
     settings: Settings,
     confidence_level: float | None = None,
+    snapshots: OutcomeSnapshots | None = None,
 ) -> dict[str, Any]:
     """The JSON-ready calibration report of ``window`` (see module docstring)."""
-    cols = fetch_window(session, model, window)
+    cols = fetch_window(session, model, window, snapshots)
     level = confidence_level or settings.default_confidence_level
     body: dict[str, Any] = {
         "model": model.name,

@@ -7,12 +7,14 @@ Both are ordinary logistic regressions with one or two columns, so each Newton s
 the weighted sums ``S_k = sum w r x^k`` (score, r = y - mu) and ``V_k = sum w v x^k``
 (information, v = mu (1 - mu)) for k = 0, 1, 2 - no design matrix, no per-block bookkeeping.
 Start values are the perfectly calibrated model (a = 0, b = 1), which is where a usable model
-sits, so 3-6 steps reach ``max |step| < tol``; a step that lowers the log-likelihood is halved
-(at most 30 times). Standard errors are the square roots of the diagonal of the inverse
-information at the estimate (Wald), as in any logistic fit. The estimates equal the general
-engine's (:func:`service.stats.fit.fit_logistic`) to its tolerance; this only skips its work
-for many columns (and its separation linear programme: with one covariate, separation is the
-simple order check below).
+sits, so 3-6 steps reach ``max |step| < tol``. A step larger than :data:`SMALL_STEP` that
+lowers the log-likelihood is halved (at most 30 times); smaller steps, where the quadratic
+model of the concave log-likelihood is accurate, are taken without evaluating it. Standard
+errors: square roots of the diagonal of the inverse information at the estimate (Wald), as
+in any logistic fit. The estimates equal the general engine's
+(:func:`service.stats.fit.fit_logistic`) to its tolerance; this skips only its machinery
+for many columns and its separation linear programme (with one covariate, separation is
+the order check below).
 
 No finite estimate exists when the outcomes are all 0 or all 1 (both models) or when logit(p)
 separates events from non-events (slope model: every event's logit(p) >= every non-event's,
@@ -32,6 +34,7 @@ __all__ = ["CalibrationFit", "fit_intercept", "fit_slope"]
 
 MAX_ITER = 50
 MAX_HALVINGS = 30
+SMALL_STEP = 0.05  # steps below this (logit scale) are taken without a likelihood check
 
 
 @dataclass(frozen=True)
@@ -73,7 +76,7 @@ def _newton(
         return offset + c[0] if x is None else c[0] + c[1] * x
 
     eta = eta_of(coef)
-    ll = _loglik(y, eta, w)
+    ll: float | None = None
     converged = False
     info = np.eye(coef.shape[0])
     for _ in range(MAX_ITER):
@@ -88,14 +91,21 @@ def _newton(
             v0, v1, v2 = _wsum(v, w), _wsum(vx, w), _wsum(vx * x, w)
             info = np.array([[v0, v1], [v1, v2]])
         step = np.linalg.solve(info, grad)
-        for _half in range(MAX_HALVINGS):
-            trial = coef + step
-            eta_t = eta_of(trial)
-            ll_t = _loglik(y, eta_t, w)
-            if ll_t >= ll - 1e-12 * abs(ll):
-                break
-            step = step / 2.0
-        coef, eta, ll = trial, eta_t, ll_t
+        trial = coef + step
+        eta_t = eta_of(trial)
+        if float(np.max(np.abs(step))) > SMALL_STEP:  # guard large steps by the likelihood
+            ll = _loglik(y, eta, w) if ll is None else ll
+            for _half in range(MAX_HALVINGS):
+                ll_t = _loglik(y, eta_t, w)
+                if ll_t >= ll - 1e-12 * abs(ll):
+                    break
+                step = step / 2.0
+                trial = coef + step
+                eta_t = eta_of(trial)
+            ll = ll_t
+        else:
+            ll = None  # not needed again unless a later step is large
+        coef, eta = trial, eta_t
         if float(np.max(np.abs(step))) < tol:
             converged = True
             break

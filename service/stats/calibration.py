@@ -29,6 +29,7 @@ Epidemiol 2016; Steyerberg, *Clinical Prediction Models*, 2nd ed. 2019):
 from __future__ import annotations
 
 from dataclasses import dataclass
+from statistics import NormalDist
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -172,7 +173,7 @@ def _inputs(
 
 
 def _z(confidence_level: float) -> float:
-    return float(stats.norm.ppf(0.5 + confidence_level / 2.0))
+    return NormalDist().inv_cdf(0.5 + confidence_level / 2.0)  # stdlib: no scipy call overhead
 
 
 def observed_expected(
@@ -322,9 +323,9 @@ def spiegelhalter_z(
 
 
 def _sorted(
-    yy: FloatArray, pp: FloatArray, w: FloatArray | None
+    yy: FloatArray, pp: FloatArray, w: FloatArray | None, o: np.ndarray | None = None
 ) -> tuple[FloatArray, FloatArray, FloatArray | None]:
-    o = np.argsort(pp)
+    o = np.argsort(pp) if o is None else o
     return pp[o], yy[o], None if w is None else w[o]
 
 
@@ -381,7 +382,8 @@ def calibration_report(
         n, events, sw, min_outcomes=min_outcomes, min_events=min_events, what="a calibration report"
     )
     slope, recal = calibration_slope(yy, pp, weights=w, confidence_level=confidence_level)
-    ps, ys, ws = _sorted(yy, pp, w)
+    order = np.argsort(pp)  # one sort for the AUC, the risk groups and the curve
+    ps, ys, ws = _sorted(yy, pp, w, order)
     return CalibrationReport(
         n_obs=n,
         sum_weights=sw,
@@ -396,7 +398,7 @@ def calibration_report(
         calibration_slope=slope,
         recalibration_intercept=recal,
         scores=probability_scores(yy, pp, weights=w),
-        auc=auc_delong(yy, pp, weights=w, confidence_level=confidence_level),
+        auc=auc_delong(yy, pp, weights=w, confidence_level=confidence_level, order=order),
         hosmer_lemeshow=hosmer_lemeshow_sorted(ps, ys, ws, g=groups, development=development),
         spiegelhalter=spiegelhalter_z(yy, pp, weights=w),
         reliability=reliability_sorted(ps, ys, ws, g=groups, confidence_level=confidence_level),

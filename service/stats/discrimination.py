@@ -69,14 +69,15 @@ class AucDifference:
 
 
 def _placements(
-    score: FloatArray, event: np.ndarray, weights: FloatArray
+    score: FloatArray, event: np.ndarray, weights: FloatArray, order: np.ndarray | None = None
 ) -> tuple[FloatArray, FloatArray, FloatArray, FloatArray]:
     """Placement values V10 (one per event) and V01 (one per non-event) and their weights.
 
-    One sort of all scores; per run of tied scores, the non-event weight below the run plus
-    half the non-event weight in it gives V10 (and symmetrically V01).
+    One sort of all scores (``order``, an argsort of ``score``, when the caller has one);
+    per run of tied scores, the non-event weight below the run plus half the non-event
+    weight in it gives V10 (and symmetrically V01).
     """
-    order = np.argsort(score)
+    order = np.argsort(score) if order is None else order
     ss, ev, ww = score[order], event[order], weights[order]
     new_run = np.r_[True, ss[1:] != ss[:-1]]
     starts = np.flatnonzero(new_run)
@@ -146,10 +147,14 @@ def auc_delong(
     *,
     weights: ArrayLike | None = None,
     confidence_level: float = 0.95,
+    order: np.ndarray | None = None,
 ) -> AucResult:
-    """AUC of scores ``p`` (n,) for outcomes ``y`` (n,) with DeLong SE and logit-scale interval."""
+    """AUC of scores ``p`` (n,) for outcomes ``y`` (n,) with DeLong SE and logit-scale interval.
+
+    ``order``: ``np.argsort(p)`` if the caller has already computed it (saves the sort).
+    """
     event, (s,), w = _prepare(y, [p], weights)
-    v10, wx, v01, wy = _placements(s, event, w)
+    v10, wx, v01, wy = _placements(s, event, w, order)
     auc = float(wx @ v10 / wx.sum())
     var = _wvar(v10, wx, auc) / wx.sum() + _wvar(v01, wy, auc) / wy.sum()
     se = float(np.sqrt(max(var, 0.0)))

@@ -12,25 +12,38 @@ Prints best-of-3 wall-clock seconds and each operation's ratio to the read.
 from __future__ import annotations
 
 import argparse
+import os
 import time
+import uuid
 from collections.abc import Callable
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 from scipy.special import expit
 
 from models_store.champions import set_champion
 from models_store.db import make_engine, make_session_factory, upgrade
-from models_store.models import create_model
+from models_store.models import create_model, get_model
+from models_store.orm import Score
 from models_store.outcomes import add_outcomes
-from models_store.scores import add_scores, scores_with_outcomes
+from models_store.scores import add_score_batch, scores_with_outcomes
 from models_store.versions import add_version
 from service.config import Settings
-from service.monitoring import LimitCache, Window, calibration_view, drift_view
+from service.monitoring import LimitCache, OutcomeSnapshots, Window, calibration_view, drift_view
 from service.stats.psi import numeric_reference
+
+FILL_BATCH = 50_000
 
 
 def fill(url: str, n: int) -> None:
+    """One model, one version, ``n`` scores and their outcomes, in bulk.
+
+    Scores go through the store's columnar insert (``add_score_batch``), outcomes through
+    ``add_outcomes`` (the same path as the HTTP route) in batches of :data:`FILL_BATCH`.
+    Scores are spread over a year (one time per batch), outcomes observed 30 days later.
+    """
     engine = make_engine(url)
     upgrade(engine)
     session = make_session_factory(engine)()
@@ -62,29 +75,44 @@ def fill(url: str, n: int) -> None:
     set_champion(session=session, model=model, number=1, reason="first version")
     session.commit()
     y = rng.random(n) < expit(eta + 0.1)
-    step = 100_000
-    for a in range(0, n, step):
-        rows = [
-            {
-                "inputs": {"age": float(age[i])},
-                "eta": float(eta[i]),
-                "se_eta": 0.05,
-                "probability": float(p[i]),
-            }
-            for i in range(a, min(n, a + step))
-        ]
-        ids = add_scores(session=session, model=model, version_number=1, rows=rows)
-        add_outcomes(
+    t0 = datetime(2025, 1, 1, tzinfo=UTC)
+    n_batches = max(1, -(-n // FILL_BATCH))
+    for b, a in enumerate(range(0, n, FILL_BATCH)):
+        z = min(n, a + FILL_BATCH)
+        ids = [str(uuid.UUID(int=i + 1)) for i in range(a, z)]
+        at = t0 + timedelta(days=365 * b / n_batches)
+        add_score_batch(
             session=session,
             model=model,
-            items=[
-                {"score_id": s, "outcome": int(o)}
-                for s, o in zip(ids, y[a : a + step], strict=True)
-            ],
+            version_number=1,
+            ids=ids,
+            keys=None,
+            inputs_json=[f'{{"age": {v!r}}}' for v in age[a:z].tolist()],
+            eta=eta[a:z].tolist(),
+            se_eta=[0.05] * (z - a),
+            probability=p[a:z].tolist(),
+            created_at=at,
         )
+        session.commit()
+        observed = at + timedelta(days=30)
+        items = [
+            {"score_id": s, "outcome": int(o), "observed_at": observed}
+            for s, o in zip(ids, y[a:z].tolist(), strict=True)
+        ]
+        add_outcomes(session=session, model=model, items=items)
         session.commit()
     session.close()
     engine.dispose()
+
+
+def _has_bench_model(url: str) -> bool:
+    engine = make_engine(url)
+    try:
+        upgrade(engine)
+        with make_session_factory(engine)() as session:
+            return get_model(session=session, name="bench") is not None
+    finally:
+        engine.dispose()
 
 
 def best(fn: Callable[[], object], repeat: int = 3) -> float:
@@ -99,11 +127,13 @@ def best(fn: Callable[[], object], repeat: int = 3) -> float:
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--n", type=int, default=1_000_000)
-    ap.add_argument("--db", default="/tmp/bench_monitoring.db")
+    ap.add_argument("--db", default=None, help="SQLite file (default /tmp/bench_monitoring_N.db)")
+    ap.add_argument("--url", default=None, help="a fresh database URL instead (e.g. PostgreSQL)")
+    ap.add_argument("--no-snapshot", action="store_true", help="read the store on every request")
     args = ap.parse_args()
-    path = Path(args.db)
-    url = f"sqlite:///{path}"
-    if not path.exists():
+    path = Path(args.db or f"/tmp/bench_monitoring_{args.n}.db")
+    url = args.url or f"sqlite:///{path}"
+    if not _has_bench_model(url):
         t = time.perf_counter()
         fill(url, args.n)
         print(f"filled {args.n:,} scores + outcomes in {time.perf_counter() - t:.1f} s")
@@ -115,6 +145,8 @@ def main() -> None:
     model = require_model(session=session, name="bench")
     cache = LimitCache()
     size = max(1000, args.n // 20)
+    with_snapshot = not args.no_snapshot
+    snaps = OutcomeSnapshots() if with_snapshot else None
 
     def drift() -> object:
         return drift_view(
@@ -125,26 +157,73 @@ def main() -> None:
             size=size,
             settings=settings,
             cache=cache,
+            snapshots=snaps,
         )
 
+    def report() -> object:
+        return calibration_view(
+            session=session, model=model, window=Window(), settings=settings, snapshots=snaps
+        )
+
+    print(f"load before: {_load()}")
     t = time.perf_counter()
     drift()
     cold = time.perf_counter() - t
     read = best(lambda: scores_with_outcomes(session=session, model=model))
-    report = best(
-        lambda: calibration_view(session=session, model=model, window=Window(), settings=settings)
-    )
+    t_report = best(report)
     warm = best(drift)
     n = scores_with_outcomes(session=session, model=model).n
-    print(f"n = {n:,} scored outcomes (SQLite file {path})")
-    print(f"columnar read (peer)      {read:7.3f} s   1.00 x")
-    print(f"calibration report        {report:7.3f} s   {report / read:5.2f} x read")
-    print(f"drift view, warm limits   {warm:7.3f} s   {warm / read:5.2f} x read  ({size:,}/window)")
+    mode = "in-memory snapshot" if with_snapshot else "a store read per request"
+    print(f"n = {n:,} scored outcomes ({engine.url.render_as_string()}), {mode}")
+    print(f"store columnar read (peer)    {read:7.3f} s   1.00 x")
+    print(f"calibration report            {t_report:7.3f} s   {t_report / read:5.2f} x read")
     print(
-        f"drift view, cold limits   {cold:7.3f} s   {cold / read:5.2f} x read  (CUSUM simulation)"
+        f"drift view, warm limits       {warm:7.3f} s  {warm / read:5.2f} x read ({size:,}/window)"
     )
+    print(f"drift view, first request     {cold:7.3f} s   {cold / read:5.2f} x read  (CUSUM "
+          f"simulation{', full snapshot read' if with_snapshot else ''})")  # fmt: skip
+    if snaps is not None:
+        added = _add_outcomes(session, model, args.n, 10_000)
+        t = time.perf_counter()
+        report()
+        fresh = time.perf_counter() - t
+        print(f"report after {added:,} new outcomes {fresh:7.3f} s   {fresh / read:5.2f} x read  "
+              f"(incremental refresh; full reads so far: {snaps.full_reads})")  # fmt: skip
+    print(f"load after: {_load()}")
     session.close()
     engine.dispose()
+
+
+def _load() -> str:
+    one, five, fifteen = os.getloadavg()
+    return f"{one:.2f} {five:.2f} {fifteen:.2f} (1/5/15 min) on {os.cpu_count()} CPUs"
+
+
+def _add_outcomes(session: Any, model: Any, n: int, k: int) -> int:
+    """Score ``k`` more records and store their outcomes (a concurrent ingester's work)."""
+    ids = [str(uuid.UUID(int=n + 1 + i)) for i in range(k)]
+    if session.get(Score, ids[0]) is not None:
+        return 0  # added by an earlier run of the benchmark on this file
+    at = datetime.now(UTC)
+    add_score_batch(
+        session=session,
+        model=model,
+        version_number=1,
+        ids=ids,
+        keys=None,
+        inputs_json=['{"age": 50.0}'] * k,
+        eta=[-3.2] * k,
+        se_eta=[0.05] * k,
+        probability=[float(expit(-3.2))] * k,
+        created_at=at,
+    )
+    add_outcomes(
+        session=session,
+        model=model,
+        items=[{"score_id": s, "outcome": int(i % 20 == 0)} for i, s in enumerate(ids)],
+    )
+    session.commit()
+    return k
 
 
 if __name__ == "__main__":
