@@ -56,16 +56,8 @@ licensed practice.*
 
 
 def _routers() -> list[APIRouter]:
-    out: list[APIRouter] = []
-    for name in ROUTERS:
-        try:
-            module = importlib.import_module(name)
-        except ModuleNotFoundError as exc:
-            if exc.name != name:
-                raise
-            continue  # a resource module not written yet
-        out.append(module.router)
-    return out
+    # Every listed module must exist: a missing one is a packaging error, not a feature toggle.
+    return [importlib.import_module(name).router for name in ROUTERS]
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:

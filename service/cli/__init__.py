@@ -34,13 +34,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"riskfit {__version__}")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name in COMMANDS:
-        try:
-            module = importlib.import_module(name)
-        except ModuleNotFoundError as exc:
-            if exc.name != name:
-                raise
-            continue
-        module.register(subparsers)
+        importlib.import_module(name).register(subparsers)
     return parser
 
 

@@ -7,7 +7,6 @@ in-process against the app it is about to serve (the demo skips itself if the mo
 from __future__ import annotations
 
 import argparse
-import importlib
 import os
 import sys
 from typing import Any
@@ -36,20 +35,9 @@ def _own_key(args: argparse.Namespace) -> str:
     return issued.key
 
 
-def _demo() -> Any:
-    try:
-        return importlib.import_module("service.demo")
-    except ModuleNotFoundError as exc:
-        if exc.name != "service.demo":
-            raise
-        return None
-
-
 def run(args: argparse.Namespace) -> int:
-    demo = _demo()
-    if demo is None:
-        print("riskfit demo: the demo scenario (service.demo) is not installed", file=sys.stderr)
-        return 1
+    from service import demo
+
     try:
         demo.run_demo(url=args.url, api_key=args.api_key or _own_key(args))
     except demo.DemoError as exc:
@@ -60,10 +48,7 @@ def run(args: argparse.Namespace) -> int:
 
 def seed_demo_into(settings: Settings) -> None:
     """Used by ``riskfit serve --demo``: run the demo in-process on the served database."""
-    demo = _demo()
-    if demo is None:
-        print("riskfit serve --demo: service.demo is not installed; serving without it")
-        return
+    from service import demo
     from service.app import create_app
     from service.demo.inprocess import in_process_client
 
