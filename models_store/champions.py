@@ -11,7 +11,7 @@ from models_store.orm import ChampionChange, RiskModel
 from models_store.versions import require_version
 from service.errors import ConflictError, InvalidInputError
 
-__all__ = ["champion_history", "current_champion", "set_champion"]
+__all__ = ["champion_history", "current_champion", "model_with_champion", "set_champion"]
 
 
 def _latest_change(session: Session, model: RiskModel) -> ChampionChange | None:
@@ -28,6 +28,26 @@ def current_champion(*, session: Session, model: RiskModel) -> int | None:
     """The number of the version currently serving ``model`` (None before the first)."""
     change = _latest_change(session, model)
     return None if change is None else change.version_number
+
+
+def model_with_champion(*, session: Session, name: str) -> tuple[RiskModel, int | None] | None:
+    """The model called ``name`` and its champion number in one Core select (None: no model).
+
+    For the scoring path: one round trip, no ORM identity-map work; the model comes back as a
+    detached :class:`RiskModel` holding ``id``, ``name`` and ``description``.
+    """
+    latest = (
+        select(ChampionChange.version_number)
+        .where(ChampionChange.model_id == RiskModel.id)
+        .order_by(ChampionChange.seq.desc())
+        .limit(1)
+        .scalar_subquery()
+    )
+    stmt = select(RiskModel.id, RiskModel.description, latest).where(RiskModel.name == name)
+    row = session.execute(stmt).first()
+    if row is None:
+        return None
+    return RiskModel(id=row[0], name=name, description=row[1]), row[2]
 
 
 def set_champion(

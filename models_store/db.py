@@ -91,8 +91,8 @@ def make_engine(
     *,
     busy_timeout_ms: int = 30_000,
     sqlite_synchronous: SqliteSync = "FULL",
-    pool_size: int = 10,
-    max_overflow: int = 20,
+    pool_size: int = 40,
+    max_overflow: int = 10,
     echo: bool = False,
 ) -> Engine:
     """Create the engine for ``url`` with riskfit's connection settings (see module docstring).
@@ -101,6 +101,10 @@ def make_engine(
     (connections move between the web server's worker threads through the pool).
     PostgreSQL (``postgresql+psycopg://``): ``pool_pre_ping`` so that a restarted server does not
     fail the first request after it.
+
+    ``pool_size`` matches the web server's worker-thread pool (anyio's default of 40 threads),
+    so a thread never waits for a connection another thread holds idle; connections are opened
+    only when needed, so a quiet server keeps few.
     """
     if sqlite_synchronous not in ("NORMAL", "FULL"):
         raise ValueError(f"sqlite_synchronous must be NORMAL or FULL, not {sqlite_synchronous!r}")

@@ -9,7 +9,7 @@ from sqlalchemy.orm import Session
 from models_store.orm import RiskModel
 from service.errors import ConflictError, ModelNotFoundError
 
-__all__ = ["create_model", "get_model", "list_models", "require_model"]
+__all__ = ["create_model", "get_model", "list_models", "model_not_found", "require_model"]
 
 
 def create_model(*, session: Session, name: str, description: str = "") -> RiskModel:
@@ -43,13 +43,18 @@ def require_model(*, session: Session, name: str) -> RiskModel:
     """The model called ``name``; :class:`ModelNotFoundError` if there is none."""
     model = get_model(session=session, name=name)
     if model is None:
-        raise ModelNotFoundError(
-            f"no risk model named {name!r}",
-            field="model",
-            value=name,
-            remedy="list models with GET /risk-models, or fit one first",
-        )
+        raise model_not_found(name)
     return model
+
+
+def model_not_found(name: str) -> ModelNotFoundError:
+    """The 404 error for an unknown model ``name``."""
+    return ModelNotFoundError(
+        f"no risk model named {name!r}",
+        field="model",
+        value=name,
+        remedy="list models with GET /risk-models, or fit one first",
+    )
 
 
 def list_models(*, session: Session, limit: int | None = None, offset: int = 0) -> list[RiskModel]:

@@ -32,7 +32,8 @@ import numpy as np
 import orjson
 from sqlalchemy.orm import Session
 
-from models_store.champions import current_champion
+from models_store.champions import current_champion, model_with_champion
+from models_store.models import model_not_found
 from models_store.orm import RiskModel
 from models_store.versions import require_version
 from service.data_io import FieldNamer, coerce_column, columns_from_rows
@@ -51,6 +52,8 @@ __all__ = [
     "records_input",
     "score_batch",
     "score_records",
+    "scoring_model",
+    "version_to_score",
 ]
 
 CI_METHOD = "wald-logit"
@@ -118,7 +121,10 @@ def resolve_version(session: Session, model: RiskModel, version: int | None) -> 
     """The version to score with: the one asked for, or the current champion."""
     if version is not None:
         return version
-    champion = current_champion(session=session, model=model)
+    return _champion_or_error(model, current_champion(session=session, model=model))
+
+
+def _champion_or_error(model: RiskModel, champion: int | None) -> int:
     if champion is None:
         raise VersionNotFoundError(
             f"risk model {model.name!r} has no champion version yet",
@@ -362,6 +368,19 @@ def score_batch(
         "created_at": created_at,
         "scores": scores,
     }
+
+
+def scoring_model(*, session: Session, name: str) -> tuple[RiskModel, int | None]:
+    """The model called ``name`` (404 if none) and its champion number, in one store read."""
+    found = model_with_champion(session=session, name=name)
+    if found is None:
+        raise model_not_found(name)
+    return found
+
+
+def version_to_score(model: RiskModel, version: int | None, champion: int | None) -> int:
+    """The version asked for, else the champion (VersionNotFoundError when there is none)."""
+    return version if version is not None else _champion_or_error(model, champion)
 
 
 def score_records(

@@ -4,6 +4,11 @@
 * :data:`SessionDep` - one SQLAlchemy session per request from ``app.state.session_factory``;
   domain operations commit, the session is closed (and anything uncommitted rolled back)
   when the request ends.
+
+Dependencies that do no blocking I/O are ``async`` so that they run on the event loop
+instead of costing a worker-thread hop each: the settings, making a session (it connects
+lazily), closing one that holds no transaction, and a role check of a caller already
+identified in this request. Everything that may touch the store runs in the thread pool.
 * :data:`ModelDep` - the ``{model}`` path parameter loaded from the store, or
   :class:`~service.errors.ModelNotFoundError` (404). Written once here, never per route.
 * :data:`ScorerAccess`, :data:`ModelerAccess`, :data:`AdminAccess` - role gates built by
@@ -17,12 +22,13 @@ routes need no change.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterator
+from collections.abc import AsyncIterator, Awaitable, Callable
 from dataclasses import dataclass
 from typing import Annotated, Literal
 
 from fastapi import Depends, Path, Request
 from sqlalchemy.orm import Session
+from starlette.concurrency import run_in_threadpool
 
 from models_store.models import require_model
 from models_store.orm import RiskModel
@@ -72,7 +78,7 @@ class Principal:
 ANONYMOUS = Principal(role="admin")
 
 
-def get_settings_dep(request: Request) -> Settings:
+async def get_settings_dep(request: Request) -> Settings:
     settings: Settings = request.app.state.settings
     return settings
 
@@ -80,13 +86,16 @@ def get_settings_dep(request: Request) -> Settings:
 SettingsDep = Annotated[Settings, Depends(get_settings_dep)]
 
 
-def get_session(request: Request) -> Iterator[Session]:
+async def get_session(request: Request) -> AsyncIterator[Session]:
     factory: Callable[[], Session] = request.app.state.session_factory
-    session = factory()
+    session = factory()  # no connection yet: it is taken at the first statement
     try:
         yield session
     finally:
-        session.close()
+        if session.in_transaction():
+            await run_in_threadpool(session.close)  # rolls back: a round trip to the store
+        else:
+            session.close()  # nothing held: no I/O
 
 
 SessionDep = Annotated[Session, Depends(get_session)]
@@ -100,22 +109,24 @@ def get_model(model: ModelName, session: SessionDep) -> RiskModel:
 ModelDep = Annotated[RiskModel, Depends(get_model)]
 
 
-def require_role(role: Role) -> Callable[..., Principal]:
+def require_role(role: Role) -> Callable[..., Awaitable[Principal]]:
     """A dependency that admits callers holding ``role`` or a higher one.
 
     Checks the API key (:func:`service.security.authorize`: 401 for a missing, unknown or
     revoked key, 403 naming the role needed) unless ``app.state.access_checker`` replaces it.
     """
 
-    def check_access(request: Request, session: SessionDep) -> Principal:
+    async def check_access(request: Request, session: SessionDep) -> Principal:
         checker: Callable[[Request, Role], Principal] | None = getattr(
             request.app.state, "access_checker", None
         )
         if checker is not None:
-            return checker(request, role)
+            return await run_in_threadpool(checker, request, role)
         from service.security import authorize  # security imports this module
 
-        return authorize(request, session, role)
+        if getattr(request.state, "riskfit_principal", None) is not None:
+            return authorize(request, session, role)  # caller known: a rank comparison only
+        return await run_in_threadpool(authorize, request, session, role)
 
     check_access.__name__ = f"require_{role}"
     return check_access

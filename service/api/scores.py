@@ -16,13 +16,22 @@ from fastapi.exceptions import RequestValidationError
 from pydantic import ValidationError
 from starlette.concurrency import run_in_threadpool
 
-from service.api.deps import ModelDep, ScorerAccess, SessionDep, SettingsDep
+from service.api.deps import ModelName, ScorerAccess, SessionDep, SettingsDep
 from service.api.responses import JSONBytes
 from service.errors import DataError
+from service.limits import JSON_SCOPE_KEY
 from service.schemas import ErrorResponse, ScoreBatchPublic, ScoreCreate
 from service.schemas.scores import ScoreOptions
 from service.score_writer import writer_of
-from service.scoring import LoadedVersion, ScoreInput, columns_input, records_input, score_batch
+from service.scoring import (
+    LoadedVersion,
+    ScoreInput,
+    columns_input,
+    records_input,
+    score_batch,
+    scoring_model,
+    version_to_score,
+)
 
 router = APIRouter(prefix="/risk-models/{model}/scores", tags=["scores"])
 
@@ -43,12 +52,18 @@ def _lenient_json(raw: bytes) -> Any:
         ) from exc
 
 
-def _parse(raw: bytes) -> tuple[ScoreOptions, Any, bool]:
-    """(options, data, is_columns) from the raw body; 422 for anything malformed."""
-    try:
-        body = orjson.loads(raw)
-    except orjson.JSONDecodeError:
-        body = _lenient_json(raw)  # NaN / Infinity literals: refused later, naming the cell
+_UNPARSED = object()
+
+
+def _parse(raw: bytes, parsed: Any = _UNPARSED) -> tuple[ScoreOptions, Any, bool]:
+    """(options, data, is_columns) from the raw body (or its ``parsed`` value); 422 if malformed."""
+    if parsed is not _UNPARSED:
+        body = parsed  # parsed once already, by the limits middleware
+    else:
+        try:
+            body = orjson.loads(raw)
+        except orjson.JSONDecodeError:
+            body = _lenient_json(raw)  # NaN / Infinity literals: refused later, naming the cell
     if not isinstance(body, dict):
         raise DataError(
             "the body must be a JSON object", field="body", value=None, remedy=_LAYOUT_REMEDY
@@ -114,27 +129,35 @@ def _invalid(loc: tuple[str | int, ...], message: str, value: Any) -> NoReturn:
     },
 )
 async def post_scores(
-    model: ModelDep,
+    model: ModelName,
     session: SessionDep,
     settings: SettingsDep,
     request: Request,
     _: ScorerAccess,
 ) -> JSONBytes:
-    options, data, is_columns = _parse(await request.body())
+    raw = await request.body()
+    parsed = request.scope.pop(JSON_SCOPE_KEY, _UNPARSED)
+    state = request.app.state
+    writer = writer_of(state)
 
-    def batch(v: LoadedVersion) -> ScoreInput:
-        return columns_input(data, v.inputs) if is_columns else records_input(data, v.inputs)
+    def work() -> dict[str, Any]:  # one worker-thread hop: store read, parse, score, log
+        found, champion = scoring_model(session=session, name=model)  # 404 before the body
+        options, data, is_columns = _parse(raw, parsed)
 
-    answer = await run_in_threadpool(
-        score_batch,
-        session=session,
-        model=model,
-        data=batch,
-        version=options.version,
-        confidence_level=options.confidence_level or settings.default_confidence_level,
-        explain=options.explain,
-        cache=request.app.state.version_cache,
-        writer=writer_of(request.app.state),
-    )
-    request.app.state.metrics.records_scored.labels(model.name).inc(answer["n_records"])
+        def batch(v: LoadedVersion) -> ScoreInput:
+            return columns_input(data, v.inputs) if is_columns else records_input(data, v.inputs)
+
+        return score_batch(
+            session=session,
+            model=found,
+            data=batch,
+            version=version_to_score(found, options.version, champion),
+            confidence_level=options.confidence_level or settings.default_confidence_level,
+            explain=options.explain,
+            cache=state.version_cache,
+            writer=writer,
+        )
+
+    answer = await run_in_threadpool(work)
+    state.metrics.records_scored.labels(model).inc(answer["n_records"])
     return JSONBytes(answer)
