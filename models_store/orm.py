@@ -236,7 +236,10 @@ class AlertRecord(Base):
     """A monitoring alert (a measure crossed its threshold); ``resolved_at`` closes it."""
 
     __tablename__ = "alert"
-    __table_args__ = (Index(None, "model_id", "raised_at"),)
+    __table_args__ = (
+        Index(None, "model_id", "raised_at"),
+        UniqueConstraint("model_id", "dedup_key"),  # one stored alert per condition
+    )
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     model_id: Mapped[int] = mapped_column(ForeignKey("risk_model.id"))
@@ -249,6 +252,8 @@ class AlertRecord(Base):
     raised_at: Mapped[datetime] = mapped_column(default=utcnow)
     resolved_at: Mapped[datetime | None]
     details: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    # hex SHA-256 of the raising condition (measure, version, window), set by the monitor
+    dedup_key: Mapped[str | None] = mapped_column(String(64))
 
 
 class AuditEvent(Base):

@@ -17,19 +17,24 @@ psi:<feature>              PSI >= threshold with at least ``psi_min_records``   
 
 Idempotency: every condition has a key (measure, version, window or CUSUM segment and signal
 index, or PSI window start); a condition whose key is already stored is not stored again,
-so repeated evaluations of the same data raise nothing new.
+so repeated evaluations of the same data raise nothing new. The store enforces it with a
+unique (model, SHA-256 of the key) constraint, so concurrent evaluations cannot both store
+one condition (see :func:`store_new_alerts`).
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 from collections.abc import Iterator
 from datetime import datetime
 from typing import Any
 
+from sqlalchemy import select
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
-from models_store.alerts import add_alert, list_alerts
+from models_store._types import utcnow
 from models_store.orm import AlertRecord, RiskModel
 from service.config import Settings
 
@@ -141,27 +146,41 @@ def _key(c: Condition) -> str:
 def store_new_alerts(
     *, session: Session, model: RiskModel, found: list[Condition]
 ) -> list[AlertRecord]:
-    """Store the conditions not stored before (by key); returns the new alert rows."""
-    known = {a.details.get("key") for a in list_alerts(session=session, model=model)}
+    """Store the conditions not stored before (by key); returns the new alert rows.
+
+    Each row carries ``dedup_key`` = hex SHA-256 of the condition's key, unique per model in
+    the store (``uq_alert_model_id_dedup_key``). Keys already stored are skipped up front; a
+    key stored meanwhile by a concurrent evaluation (another thread, worker or host) makes
+    the insert fail inside its own savepoint, and that condition is skipped: two evaluations
+    of the same data never store the same alert twice, whatever their interleaving.
+    """
+    stmt = select(AlertRecord.dedup_key).where(AlertRecord.model_id == model.id)
+    known = {k for k in session.scalars(stmt) if k is not None}
     new: list[AlertRecord] = []
     for c in found:
         key = _key(c)
-        if key in known:
+        digest = hashlib.sha256(key.encode()).hexdigest()
+        if digest in known:
             continue
-        known.add(key)
-        new.append(
-            add_alert(
-                session=session,
-                model=model,
-                measure=c["measure"],
-                value=c["value"],
-                threshold=c["threshold"],
-                direction=c["direction"],
-                window=json.loads(json.dumps(c["window"], default=_iso)),
-                version_number=c["version"],
-                details={**c["details"], "key": key},
-            )
+        known.add(digest)
+        alert = AlertRecord(
+            model_id=model.id,
+            version_number=c["version"],
+            measure=c["measure"],
+            value=float(c["value"]),
+            threshold=float(c["threshold"]),
+            direction=c["direction"],
+            window=json.loads(json.dumps(c["window"], default=_iso)),
+            details={**c["details"], "key": key},
+            raised_at=utcnow(),
+            dedup_key=digest,
         )
+        try:
+            with session.begin_nested():
+                session.add(alert)
+        except IntegrityError:
+            continue  # stored by a concurrent evaluation: the first one stands
+        new.append(alert)
     return new
 
 

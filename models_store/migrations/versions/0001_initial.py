@@ -60,10 +60,12 @@ def upgrade() -> None:
         sa.Column("raised_at", UTC_TIMESTAMP, nullable=False),
         sa.Column("resolved_at", UTC_TIMESTAMP, nullable=True),
         sa.Column("details", sa.JSON(), nullable=False),
+        sa.Column("dedup_key", sa.String(length=64), nullable=True),
         sa.ForeignKeyConstraint(
             ["model_id"], ["risk_model.id"], name=op.f("fk_alert_model_id_risk_model")
         ),
         sa.PrimaryKeyConstraint("id", name=op.f("pk_alert")),
+        sa.UniqueConstraint("model_id", "dedup_key", name=op.f("uq_alert_model_id_dedup_key")),
     )
     op.create_index(op.f("ix_alert_model_id_raised_at"), "alert", ["model_id", "raised_at"])
 
