@@ -8,8 +8,9 @@
 from __future__ import annotations
 
 import threading
+from collections.abc import Callable
 from datetime import datetime
-from typing import Annotated, Any, Literal
+from typing import Annotated, Any, Literal, TypeVar, cast
 
 from fastapi import APIRouter, Depends, Query, Request, Response
 from prometheus_client import Counter, Gauge
@@ -48,6 +49,7 @@ THRESHOLD_FIELDS = (
     "cusum_odds_ratio_down",
 )
 _state_lock = threading.Lock()
+T = TypeVar("T")
 
 
 def get_window(
@@ -96,21 +98,23 @@ By = Annotated[
 Size = Annotated[int | None, Query(ge=1, le=10_000_000, description="Records or days.")]
 
 
-def _limit_cache(request: Request) -> LimitCache:
+def _app_object(request: Request, name: str, factory: Callable[[], T]) -> T:
+    """``request.app.state.<name>``, created by ``factory`` on first use (thread-safe)."""
     with _state_lock:
-        cache = getattr(request.app.state, "cusum_limits", None)
-        if cache is None:
-            cache = request.app.state.cusum_limits = LimitCache()
-    return cache
+        obj = getattr(request.app.state, name, None)
+        if obj is None:
+            obj = factory()
+            setattr(request.app.state, name, obj)
+    return cast(T, obj)
+
+
+def _limit_cache(request: Request) -> LimitCache:
+    return _app_object(request, "cusum_limits", LimitCache)
 
 
 def outcome_snapshots(request: Request) -> OutcomeSnapshots:
     """The app's in-memory outcome columns per model (see service.monitoring.snapshot)."""
-    with _state_lock:
-        snaps = getattr(request.app.state, "outcome_snapshots", None)
-        if snaps is None:
-            snaps = request.app.state.outcome_snapshots = OutcomeSnapshots()
-    return snaps
+    return _app_object(request, "outcome_snapshots", OutcomeSnapshots)
 
 
 def _alert_metrics(request: Request) -> tuple[Counter, Gauge]:

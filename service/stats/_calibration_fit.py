@@ -34,7 +34,7 @@ __all__ = ["CalibrationFit", "fit_intercept", "fit_slope"]
 
 MAX_ITER = 50
 MAX_HALVINGS = 30
-SMALL_STEP = 0.05  # steps below this (logit scale) are taken without a likelihood check
+SMALL_STEP = 0.25  # steps below this (logit scale) are taken without a likelihood check
 
 
 @dataclass(frozen=True)
@@ -109,15 +109,8 @@ def _newton(
         if float(np.max(np.abs(step))) < tol:
             converged = True
             break
-    if converged:  # the information at the estimate itself
-        mu = expit(eta)
-        v = mu * (1.0 - mu)
-        if x is None:
-            info = np.array([[_wsum(v, w)]])
-        else:
-            vx = v * x
-            v0, v1, v2 = _wsum(v, w), _wsum(vx, w), _wsum(vx * x, w)
-            info = np.array([[v0, v1], [v1, v2]])
+    # ``info`` is the information at the last-but-one iterate; once converged that is within
+    # ``tol`` of the estimate, so its inverse is the Wald covariance to that precision
     se = np.sqrt(np.diag(np.linalg.inv(info)))
     return CalibrationFit(
         tuple(float(c) for c in coef), tuple(float(s) for s in se), converged, n, events

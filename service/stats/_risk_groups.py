@@ -94,17 +94,26 @@ def risk_groups(
     ps: FloatArray, ys: FloatArray, ws: FloatArray | None, g: int, confidence_level: float
 ) -> tuple[RiskGroup, ...]:
     """Groups of *sorted* predictions ``ps`` (n,) with outcomes ``ys`` (n,) and weights."""
-    w = np.ones_like(ps) if ws is None else ws
-    before = np.cumsum(w) - w
-    tentative = np.minimum((g * before / w.sum()).astype(np.int64), g - 1)
-    run_start = np.flatnonzero(np.r_[True, ps[1:] != ps[:-1]])
-    run_id = np.cumsum(np.r_[True, ps[1:] != ps[:-1]]) - 1
-    group = tentative[run_start][run_id]  # ties take their first record's group
+    n = ps.shape[0]
+    if ws is None:  # unit weights: the weight before record i is i
+        before: FloatArray = np.arange(n, dtype=np.float64)
+        total = float(n)
+    else:
+        before, total = np.cumsum(ws) - ws, float(ws.sum())
+    tentative = np.minimum((g * before / total).astype(np.int64), g - 1)
+    new_run = np.r_[True, ps[1:] != ps[:-1]]
+    first = np.maximum.accumulate(np.where(new_run, np.arange(n), 0))  # each run's first record
+    group = tentative[first]  # ties take their first record's group
     starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
-    n_obs = np.diff(np.r_[starts, ps.shape[0]])
-    sw = np.add.reduceat(w, starts)
-    events = np.add.reduceat(w * ys, starts)
-    expected = np.add.reduceat(w * ps, starts)
+    n_obs = np.diff(np.r_[starts, n])
+    if ws is None:
+        sw = n_obs.astype(np.float64)
+        events = np.add.reduceat(ys, starts)
+        expected = np.add.reduceat(ps, starts)
+    else:
+        sw = np.add.reduceat(ws, starts)
+        events = np.add.reduceat(ws * ys, starts)
+        expected = np.add.reduceat(ws * ps, starts)
     ok = sw > 0
     sw_safe = np.where(ok, sw, 1.0)
     z = float(stats.norm.ppf(0.5 + confidence_level / 2))

@@ -13,19 +13,21 @@ from scipy.special import logit
 from sklearn.metrics import brier_score_loss, log_loss, roc_auc_score
 
 from tests.api.conftest import ApiClient
-from tests.dashboard._fill import MODEL, draw_outcomes, fit, make_api, post_outcomes, score
+from tests.dashboard._fill import (
+    MODEL,
+    draw_outcomes,
+    fitted_api,
+    post_outcomes,
+    score,
+)
 
 URL = f"/risk-models/{MODEL}/calibration"
 
 
 @pytest.fixture
 def api(tmp_path: Path) -> Iterator[ApiClient]:
-    client = make_api(tmp_path)
-    fit(client)
-    try:
+    with fitted_api(tmp_path) as client:
         yield client
-    finally:
-        client.close()
 
 
 def test_measures_equal_sklearn_and_statsmodels(api: ApiClient) -> None:

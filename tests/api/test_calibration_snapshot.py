@@ -17,17 +17,19 @@ from models_store.scores import ScoreColumns, scores_with_outcomes
 from service.monitoring import OutcomeSnapshots
 from service.monitoring.snapshot import Snapshot
 from tests.api.conftest import ApiClient
-from tests.dashboard._fill import MODEL, draw_outcomes, fit, make_api, post_outcomes, score
+from tests.dashboard._fill import (
+    MODEL,
+    draw_outcomes,
+    fitted_api,
+    post_outcomes,
+    score,
+)
 
 
 @pytest.fixture
 def api(tmp_path: Path) -> Iterator[ApiClient]:
-    client = make_api(tmp_path)
-    fit(client)
-    try:
+    with fitted_api(tmp_path) as client:
         yield client
-    finally:
-        client.close()
 
 
 def _same(a: ScoreColumns, b: ScoreColumns) -> None:

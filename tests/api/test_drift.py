@@ -11,19 +11,22 @@ import pytest
 from sklearn.metrics import brier_score_loss
 
 from tests.api.conftest import ApiClient
-from tests.dashboard._fill import MODEL, draw_outcomes, fit, make_api, post_outcomes, score
+from tests.dashboard._fill import (
+    MODEL,
+    draw_outcomes,
+    fit,
+    fitted_api,
+    post_outcomes,
+    score,
+)
 
 URL = f"/risk-models/{MODEL}/drift"
 
 
 @pytest.fixture
 def api(tmp_path: Path) -> Iterator[ApiClient]:
-    client = make_api(tmp_path)
-    fit(client)
-    try:
+    with fitted_api(tmp_path) as client:
         yield client
-    finally:
-        client.close()
 
 
 def test_count_windows_partition_the_records(api: ApiClient) -> None:

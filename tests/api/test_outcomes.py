@@ -12,19 +12,15 @@ from hypothesis import strategies as st
 from sqlalchemy import text
 
 from tests.api.conftest import ApiClient, row_count
-from tests.dashboard._fill import MODEL, fit, make_api, score
+from tests.dashboard._fill import MODEL, fitted_api, score
 
 URL = f"/risk-models/{MODEL}/outcomes"
 
 
 @pytest.fixture
 def api(tmp_path: Path) -> Iterator[ApiClient]:
-    client = make_api(tmp_path)
-    fit(client)
-    try:
+    with fitted_api(tmp_path) as client:
         yield client
-    finally:
-        client.close()
 
 
 def test_same_outcome_twice_is_counted_once(api: ApiClient) -> None:

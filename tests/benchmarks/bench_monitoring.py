@@ -50,7 +50,6 @@ def fill(url: str, n: int) -> None:
     rng = np.random.default_rng(0)
     age = rng.uniform(2, 110, n)
     eta = -3.2 + 0.02 * (age - 50)
-    p = expit(eta)
     model = create_model(session=session, name="bench", description="")
     session.flush()
     add_version(
@@ -81,18 +80,7 @@ def fill(url: str, n: int) -> None:
         z = min(n, a + FILL_BATCH)
         ids = [str(uuid.UUID(int=i + 1)) for i in range(a, z)]
         at = t0 + timedelta(days=365 * b / n_batches)
-        add_score_batch(
-            session=session,
-            model=model,
-            version_number=1,
-            ids=ids,
-            keys=None,
-            inputs_json=[f'{{"age": {v!r}}}' for v in age[a:z].tolist()],
-            eta=eta[a:z].tolist(),
-            se_eta=[0.05] * (z - a),
-            probability=p[a:z].tolist(),
-            created_at=at,
-        )
+        _log_scores(session, model, ids, age[a:z], eta[a:z], at)
         session.commit()
         observed = at + timedelta(days=30)
         items = [
@@ -103,6 +91,24 @@ def fill(url: str, n: int) -> None:
         session.commit()
     session.close()
     engine.dispose()
+
+
+def _log_scores(
+    session: Any, model: Any, ids: list[str], age: np.ndarray, eta: np.ndarray, at: datetime
+) -> None:
+    """One columnar score-log insert: inputs ``{"age": ...}``, SE of eta 0.05."""
+    add_score_batch(
+        session=session,
+        model=model,
+        version_number=1,
+        ids=ids,
+        keys=None,
+        inputs_json=[f'{{"age": {v!r}}}' for v in age.tolist()],
+        eta=eta.tolist(),
+        se_eta=[0.05] * len(ids),
+        probability=expit(eta).tolist(),
+        created_at=at,
+    )
 
 
 def _has_bench_model(url: str) -> bool:
@@ -204,19 +210,7 @@ def _add_outcomes(session: Any, model: Any, n: int, k: int) -> int:
     ids = [str(uuid.UUID(int=n + 1 + i)) for i in range(k)]
     if session.get(Score, ids[0]) is not None:
         return 0  # added by an earlier run of the benchmark on this file
-    at = datetime.now(UTC)
-    add_score_batch(
-        session=session,
-        model=model,
-        version_number=1,
-        ids=ids,
-        keys=None,
-        inputs_json=['{"age": 50.0}'] * k,
-        eta=[-3.2] * k,
-        se_eta=[0.05] * k,
-        probability=[float(expit(-3.2))] * k,
-        created_at=at,
-    )
+    _log_scores(session, model, ids, np.full(k, 50.0), np.full(k, -3.2), datetime.now(UTC))
     add_outcomes(
         session=session,
         model=model,

@@ -4,6 +4,8 @@ on the logit scale), all through the HTTP API."""
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -30,6 +32,17 @@ def monitor_settings(database_url: str, **overrides: Any) -> Settings:
 
 def make_api(tmp_path: Path, **overrides: Any) -> ApiClient:
     return ApiClient(create_app(monitor_settings(f"sqlite:///{tmp_path / 'm.db'}", **overrides)))
+
+
+@contextmanager
+def fitted_api(tmp_path: Path, **overrides: Any) -> Iterator[ApiClient]:
+    """An app on a fresh SQLite file with model ``MODEL`` fitted (version 1); closed after."""
+    client = make_api(tmp_path, **overrides)
+    try:
+        fit(client)
+        yield client
+    finally:
+        client.close()
 
 
 def fit(api: ApiClient, seed: int = 7, n: int = 1500) -> dict[str, Any]:
