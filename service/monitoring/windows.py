@@ -6,8 +6,12 @@ UTC, so a window's bounds never move as data arrive. Only the most recent ``max_
 are computed (``windows_omitted`` says how many earlier ones were skipped).
 
 Per window (each with its method, interval and counts): O/E with the exact Poisson interval,
-calibration-in-the-large and calibration slope (riskfit's own logistic fits, Wald
-intervals), Brier score, AUC with the DeLong interval. A window with fewer than the minimum
+calibration-in-the-large and calibration slope (full maximum-likelihood fits of the one- and
+two-parameter calibration models by riskfit's own Newton-Raphson on weighted sums,
+:mod:`service.stats._calibration_fit`, started at the calibrated model and iterated to
+convergence - not a one-step approximation; Wald intervals), Brier score, AUC with the
+DeLong interval. The cost is a few passes over each window's records, nothing per record in
+Python. A window with fewer than the minimum
 outcomes / events has ``status: "not_enough_outcomes"`` and only its counts.
 """
 
