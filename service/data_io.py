@@ -15,7 +15,7 @@ from __future__ import annotations
 import io
 import math
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -25,6 +25,7 @@ import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 
 from service.errors import DataError, MissingFeatureError
+from service.stats.columns import CodedLabels
 
 __all__ = [
     "NUMERIC_KINDS",
@@ -46,13 +47,18 @@ _MISSING = object()
 
 @dataclass(frozen=True)
 class TrainingData:
-    """Validated training columns: ``columns[name]`` (n,), ``y`` (n,) float64 of 0/1."""
+    """Validated training columns: ``columns[name]`` (n,), ``y`` (n,) float64 of 0/1.
+
+    ``coded[name]``: the same categorical column as integer codes (when built here), for the
+    steps that only need to tell levels apart (design matrix, level counts, fingerprint).
+    """
 
     columns: dict[str, np.ndarray]
     y: np.ndarray
     weights: np.ndarray | None
     offset: np.ndarray | None
     n_obs: int
+    coded: dict[str, CodedLabels] = field(default_factory=dict)
 
 
 def _level_text(value: Any) -> str:
@@ -287,10 +293,15 @@ def training_data(
                 value=length,
                 remedy="give every column the same number of values",
             )
-    columns = {
-        name: coerce_column(name, kind, raw[name], cell_namer(layout, name))
-        for name, kind in kinds.items()
-    }
+    columns: dict[str, np.ndarray] = {}
+    coded: dict[str, CodedLabels] = {}
+    for name, kind in kinds.items():
+        where = cell_namer(layout, name)
+        if kind in NUMERIC_KINDS:
+            columns[name] = coerce_column(name, kind, raw[name], where)
+        else:
+            coded[name] = _coded_column(name, raw[name], where)
+            columns[name] = coded[name].to_array()
     y = coerce_outcome(outcome, raw[outcome], cell_namer(layout, outcome))
     w = (
         coerce_column(weights, "numeric", raw[weights], cell_namer(layout, weights))
@@ -310,4 +321,18 @@ def training_data(
         if offset
         else None
     )
-    return TrainingData(columns=columns, y=y, weights=w, offset=off, n_obs=n)
+    return TrainingData(columns=columns, y=y, weights=w, offset=off, n_obs=n, coded=coded)
+
+
+def _coded_column(name: str, values: Any, where: FieldNamer) -> CodedLabels:
+    """A categorical column as codes: Arrow text by ``dictionary_encode``, else a hash pass."""
+    if isinstance(values, pa.ChunkedArray | pa.Array) and not values.null_count:
+        arr = values.combine_chunks() if isinstance(values, pa.ChunkedArray) else values
+        if pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type):
+            arr = pc.dictionary_encode(arr)
+        if pa.types.is_dictionary(arr.type) and (
+            pa.types.is_string(arr.type.value_type) or pa.types.is_large_string(arr.type.value_type)
+        ):
+            codes = arr.indices.to_numpy(zero_copy_only=False)
+            return CodedLabels.compact(codes, arr.dictionary.to_pylist())
+    return CodedLabels.from_strings(coerce_column(name, "categorical", values, where))

@@ -42,6 +42,7 @@ from service.data_io import NUMERIC_KINDS, TrainingData
 from service.errors import FitError, NonConvergenceError, SingleClassError, SpecError
 from service.schemas import VersionSpec
 from service.stats.blocks import array_blocks
+from service.stats.columns import CodedLabels
 from service.stats.design import Encoding, design_matrix, learn_encoding
 from service.stats.fit import LogisticFit, fit_logistic
 from service.stats.inference import drop_term_tests, global_lr_test, profile_intervals, term_table
@@ -118,7 +119,7 @@ def data_fingerprint(
     data: TrainingData, outcome: str, weights: str | None, offset: str | None
 ) -> str:
     """SHA-256 of the canonical training data (see the module docstring)."""
-    cols: dict[str, np.ndarray] = dict(data.columns)
+    cols: dict[str, np.ndarray | CodedLabels] = {**data.columns, **data.coded}
     cols[outcome] = data.y
     if weights and data.weights is not None:
         cols[weights] = data.weights
@@ -128,7 +129,7 @@ def data_fingerprint(
 
 
 def fingerprint_columns(
-    n_obs: int, columns: Mapping[str, Callable[[], Iterable[np.ndarray]]]
+    n_obs: int, columns: Mapping[str, Callable[[], Iterable[np.ndarray | CodedLabels]]]
 ) -> str:
     """The fingerprint from each column's consecutive parts (one call per column, in order).
 
@@ -141,20 +142,29 @@ def fingerprint_columns(
         h.update(name.encode() + b"\x00")
         tagged = False
         for values in columns[name]():
+            is_float = not isinstance(values, CodedLabels) and values.dtype.kind == "f"
             if not tagged:
-                h.update(b"f" if values.dtype.kind == "f" else b"s")
+                h.update(b"f" if is_float else b"s")
                 tagged = True
-            if values.dtype.kind == "f":
-                h.update((np.ascontiguousarray(values, dtype="<f8") + 0.0).tobytes())
+            if is_float:
+                h.update(np.ascontiguousarray(values, dtype="<f8") + 0.0)
             else:
-                for v in values:
-                    b = str(v).encode()
-                    h.update(struct.pack("<I", len(b)) + b)
+                h.update(_text_bytes(values))
     return h.hexdigest()
 
 
+def _text_bytes(values: np.ndarray | CodedLabels) -> bytes:
+    """Each value's UTF-8 bytes after its length (uint32 LE), encoded once per distinct value."""
+    if not isinstance(values, CodedLabels):
+        values = CodedLabels.from_strings([str(v) for v in values.tolist()])
+    pieces = [struct.pack("<I", len(b)) + b for b in (lv.encode() for lv in values.levels)]
+    return b"".join(map(pieces.__getitem__, values.codes.tolist()))
+
+
 def _references(
-    spec: VersionSpec, columns: Mapping[str, np.ndarray]
+    spec: VersionSpec,
+    columns: Mapping[str, np.ndarray],
+    coded: Mapping[str, CodedLabels] | None = None,
 ) -> tuple[dict[str, Any], dict[str, Any]]:
     """Reference distributions (drift baselines) and training ranges per feature."""
     refs: dict[str, Any] = {}
@@ -170,11 +180,13 @@ def _references(
                 "n_obs": int(values.size),
             }
         else:
-            refs[f.name] = categorical_reference(values).to_dict()
-            levels, counts = np.unique(values.astype(str), return_counts=True)
+            c = (coded or {}).get(f.name)
+            c = c if c is not None else CodedLabels.from_strings(list(map(str, values.tolist())))
+            refs[f.name] = categorical_reference(c).to_dict()
+            counts = c.counts()
             ranges[f.name] = {
                 "kind": f.kind,
-                "levels": {str(k): int(c) for k, c in zip(levels, counts, strict=True)},
+                "levels": {c.levels[j]: int(counts[j]) for j in np.argsort(c.levels)},
                 "n_obs": int(values.size),
             }
     return refs, ranges
@@ -284,8 +296,9 @@ def fit_version(
     check_spec(spec)
     options = spec.options
     features = [f.model_dump(exclude_none=True) for f in spec.features]
-    encoding = learn_encoding(features, data.columns, interactions=spec.interactions)
-    X = design_matrix(encoding, data.columns).X
+    columns = {**data.columns, **data.coded}  # categorical features as codes where known
+    encoding = learn_encoding(features, columns, interactions=spec.interactions)
+    X = design_matrix(encoding, columns).X
     try:
         fit = fit_logistic(
             X,
@@ -315,7 +328,7 @@ def fit_version(
         for d in drops
     ]
     fit_stats["fit_seconds"] = time.perf_counter() - started
-    refs, ranges = _references(spec, data.columns)
+    refs, ranges = _references(spec, data.columns, data.coded)
     fingerprint = data_fingerprint(data, spec.outcome, options.weights, options.offset)
 
     return store_version(

@@ -273,11 +273,11 @@ def check_training_data(
     for name, kind in kinds.items():
         if kind != "categorical":
             continue
-        levels = np.unique(np.asarray(columns[name], dtype=object).astype(str))
+        levels = _distinct_text(columns[name])
         _over(
             f"data.columns.{name}",
             "distinct levels",
-            int(levels.size),
+            len(levels),
             settings.max_levels,
             "max_levels",
             f"merge rare levels of {name} into fewer groups",
@@ -291,6 +291,15 @@ def check_training_data(
             "max_string_length",
             "use shorter level names",
         )
+
+
+def _distinct_text(values: Any) -> list[str]:
+    """The distinct values of a column as text (one hash pass; no sort of the whole column)."""
+    seq = values.tolist() if isinstance(values, np.ndarray) else list(values)
+    distinct = dict.fromkeys(seq)
+    if set(map(type, distinct)) <= {str}:
+        return list(distinct)  # type: ignore[arg-type]
+    return list(dict.fromkeys(map(str, distinct)))
 
 
 class LimitsMiddleware:

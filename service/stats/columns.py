@@ -9,13 +9,69 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from service.errors import DataError, MissingFeatureError
 
-__all__ = ["get_column", "labels", "numbers"]
+__all__ = ["CodedLabels", "coded_labels", "get_column", "labels", "numbers"]
+
+
+@dataclass(frozen=True, eq=False)
+class CodedLabels:
+    """Categorical labels as integer codes: value ``i`` is ``levels[codes[i]]``.
+
+    ``codes`` (n,) intp; ``levels`` distinct strings, each used by at least one row, in no
+    particular order. One encoding serves the design matrix, the level counts of the PSI
+    reference and training ranges, and the data fingerprint, so the strings of a large
+    column are compared once (a hash lookup per row) instead of sorted in every step.
+    """
+
+    codes: np.ndarray
+    levels: tuple[str, ...]
+
+    def __len__(self) -> int:
+        return int(self.codes.shape[0])
+
+    def counts(self) -> np.ndarray:
+        """Rows per level (len(levels),), in ``levels`` order."""
+        return np.bincount(self.codes, minlength=len(self.levels))
+
+    def to_array(self) -> np.ndarray:
+        """The labels as an object array of ``str`` (n,)."""
+        table = np.empty(len(self.levels), dtype=object)
+        table[:] = self.levels
+        return table[self.codes]
+
+    @classmethod
+    def compact(cls, codes: np.ndarray, levels: Sequence[str]) -> CodedLabels:
+        """From any codes into ``levels`` (distinct): unused levels are dropped."""
+        codes = np.asarray(codes, dtype=np.intp)
+        used = np.bincount(codes, minlength=len(levels)) > 0
+        if used.all():
+            return cls(codes, tuple(levels))
+        new = np.cumsum(used) - 1
+        return cls(new[codes], tuple(lv for lv, u in zip(levels, used, strict=True) if u))
+
+    @classmethod
+    def from_strings(cls, values: Sequence[str] | np.ndarray) -> CodedLabels:
+        """From values that are all ``str`` (two C-level passes: distinct values, lookups)."""
+        seq = values.tolist() if isinstance(values, np.ndarray) else values
+        index = {lv: j for j, lv in enumerate(dict.fromkeys(seq))}
+        codes = np.fromiter(map(index.__getitem__, seq), dtype=np.intp, count=len(seq))
+        return cls(codes, tuple(index))
+
+
+def coded_labels(col: Any, name: str, prefix: str) -> CodedLabels:
+    """``col`` as :class:`CodedLabels`, refusing missing values as :func:`labels` does."""
+    if isinstance(col, CodedLabels):
+        return col
+    seq = col.tolist() if isinstance(col, np.ndarray) else col
+    if set(map(type, seq)) == {str}:
+        return CodedLabels.from_strings(seq)
+    return CodedLabels.from_strings(labels(seq, name, prefix).tolist())
 
 
 def get_column(
@@ -94,6 +150,8 @@ def _is_missing(v: Any) -> bool:
 
 def labels(col: np.ndarray | Sequence[Any], name: str, prefix: str) -> np.ndarray:
     """Categorical labels as a 1-d array of ``str``."""
+    if isinstance(col, CodedLabels):
+        return col.to_array()
     values = list(col.tolist() if isinstance(col, np.ndarray) else col)
     for i, v in enumerate(values):
         if _is_missing(v) or isinstance(v, list | dict | tuple):

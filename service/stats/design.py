@@ -32,7 +32,7 @@ import numpy as np
 
 from service.errors import DataError, SpecError, UnseenLevelError
 
-from .columns import get_column, labels, numbers
+from .columns import CodedLabels, coded_labels, get_column, numbers
 from .design_spec import check_interactions, check_spec
 from .splines import knots_at_quantiles, spline_basis
 
@@ -48,7 +48,7 @@ __all__ = [
 ]
 
 FeatureKind = Literal["numeric", "categorical", "spline"]
-Columns = Mapping[str, np.ndarray | Sequence[Any]]
+Columns = Mapping[str, np.ndarray | Sequence[Any] | CodedLabels]  # categorical: coded too
 
 
 @dataclass(frozen=True)
@@ -159,7 +159,7 @@ def _assemble(feats: tuple[EncodedFeature, ...], inter: tuple[tuple[str, str], .
 
 
 def _learn_categorical(item: dict[str, Any], col: Any, prefix: str, i: int) -> EncodedFeature:
-    seen = sorted(set(labels(col, item["name"], prefix).tolist()))
+    seen = sorted(coded_labels(col, item["name"], prefix).levels)
     return _categorical_from_seen(item, seen, prefix, i)
 
 
@@ -301,21 +301,19 @@ def _feature_columns(
 ) -> tuple[np.ndarray, np.ndarray | None]:
     """(n, k) columns of one feature and its extrapolation mask (None for categorical)."""
     if f.kind == "categorical":
-        # a fixed-width text array cannot hold a missing value: no per-cell check needed
-        text = isinstance(col, np.ndarray) and col.dtype.kind == "U"
-        values = col if text else labels(col, f.name, prefix)
-        uniq, inv = np.unique(values.astype(str), return_inverse=True)
+        coded = coded_labels(col, f.name, prefix)
         index = {lv: j for j, lv in enumerate(f.levels)}
-        for u in uniq:
-            if u not in index:
-                row = int(np.flatnonzero(values == u)[0])
-                raise UnseenLevelError(
-                    f"feature {f.name!r} has level {u!r} (row {row}), unseen at fit time",
-                    field=f"{prefix}.{f.name}[{row}]",
-                    value=u,
-                    remedy=f"use one of {list(f.levels)}",
-                )
-        code = np.array([index[u] for u in uniq], dtype=np.intp)[inv]
+        unseen = sorted(lv for lv in coded.levels if lv not in index)
+        if unseen:
+            u = unseen[0]
+            row = int(np.flatnonzero(coded.codes == coded.levels.index(u))[0])
+            raise UnseenLevelError(
+                f"feature {f.name!r} has level {u!r} (row {row}), unseen at fit time",
+                field=f"{prefix}.{f.name}[{row}]",
+                value=u,
+                remedy=f"use one of {list(f.levels)}",
+            )
+        code = np.array([index[lv] for lv in coded.levels], dtype=np.intp)[coded.codes]
         dummies = [lv for lv in f.levels if lv != f.reference]
         out = np.zeros((code.size, len(dummies)))
         for j, lv in enumerate(dummies):

@@ -10,6 +10,14 @@
   (Heinze & Schemper 2002). Estimates, SEs, z and p stay Wald in the table.
 * Likelihood-ratio tests: ``2 (l_full - l_restricted)`` against chi2 with the number
   of restricted coefficients as df; the global test restricts all but the intercept.
+  A drop-term refit (columns ``d`` set to 0, the others ``f`` free) starts where the full
+  fit's quadratic approximation puts the restricted maximum,
+  ``b_f = b_hat_f + I_ff^{-1} I_fd b_hat_d`` with ``I = cov^{-1}``, and stops when the Newton
+  decrement ``g_f' I_ff^{-1} g_f`` (twice the predicted remaining gain in log-likelihood,
+  Boyd & Vandenberghe 2004, sec. 9.5.1) is below :data:`DECREMENT_TOL`; the restricted
+  log-likelihood is then ``l + decrement / 2`` (the quadratic model's maximum). Three or
+  four passes over the data instead of six; the statistic agrees with a fully converged
+  refit to about 1e-9 (tests/stats/test_drop_term_refits.py).
   Firth fits use penalised log-likelihoods (Heinze & Schemper 2002); ridge fits use the
   penalised ones too (then the chi2 reference is only approximate).
 """
@@ -20,6 +28,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.linalg import LinAlgError, cho_factor, cho_solve
 from scipy.optimize import brentq
 from scipy.special import expit
 from scipy.stats import chi2, norm
@@ -29,6 +38,7 @@ from service.errors import SpecError
 from .blocks import BlockSource
 from .fit import LogisticFit, constrained_fit
 from .metrics import auc, brier
+from .newton import Objective, State
 from .predict import z_value
 
 __all__ = [
@@ -42,6 +52,11 @@ __all__ = [
     "profile_intervals",
     "term_table",
 ]
+
+# Newton decrement at which a drop-term refit stops (log-likelihood units): near the maximum
+# the remaining error of ``l + decrement / 2`` is of order decrement^1.5 (~1e-9 here).
+DECREMENT_TOL = 1e-6
+_DROP_MAX_STEPS = 50
 
 
 @dataclass(frozen=True)
@@ -156,6 +171,7 @@ def drop_term_tests(
     """LR test per group: all its columns set to 0 together (e.g. ``Encoding.term_groups``)."""
     out = []
     p = len(fit.term_names)
+    info = _full_information(fit)
     for name, cols in groups.items():
         idx = sorted({int(c) for c in cols})
         if not idx or idx[0] < 0 or idx[-1] >= p or fit.intercept_index in idx:
@@ -165,9 +181,77 @@ def drop_term_tests(
                 value=list(cols),
                 remedy=f"use column indices in 0..{p - 1} other than the intercept",
             )
-        st = constrained_fit(blocks, fit, dict.fromkeys(idx, 0.0))
-        out.append(_lr(name, 2.0 * (fit.penalized_loglik - st.penalized_loglik), len(idx)))
+        restricted = _restricted_loglik(blocks, fit, info, idx)
+        out.append(_lr(name, 2.0 * (fit.penalized_loglik - restricted), len(idx)))
     return tuple(out)
+
+
+def _full_information(fit: LogisticFit) -> np.ndarray | None:
+    """The (penalised) information at the estimate, ``cov^{-1}``; None if cov is unusable."""
+    if not np.all(np.isfinite(fit.cov)):
+        return None
+    try:
+        return np.linalg.inv(fit.cov)
+    except np.linalg.LinAlgError:
+        return None
+
+
+def _warm_start(fit: LogisticFit, info: np.ndarray | None, fixed: list[int]) -> np.ndarray:
+    """Restricted maximum of the full fit's quadratic approximation (module docstring)."""
+    coef = fit.coef.astype(np.float64, copy=True)
+    free = np.setdiff1d(np.arange(coef.size), fixed)
+    if info is not None and free.size:
+        try:
+            shift = np.linalg.solve(
+                info[np.ix_(free, free)], info[np.ix_(free, fixed)] @ coef[fixed]
+            )
+            coef[free] += shift
+        except np.linalg.LinAlgError:
+            pass
+    coef[fixed] = 0.0
+    return coef
+
+
+def _restricted_loglik(
+    blocks: BlockSource, fit: LogisticFit, info: np.ndarray | None, fixed: list[int]
+) -> float:
+    """Maximum (penalised) log-likelihood with ``coef[fixed] = 0`` (Newton, decrement stop)."""
+    start = _warm_start(fit, info, fixed)
+    mask = np.ones(start.size)
+    if fit.intercept_index is not None:
+        mask[fit.intercept_index] = 0.0
+    obj = Objective(blocks, fit.method, fit.ridge_lambda, mask)
+    free = np.setdiff1d(np.arange(start.size), fixed)
+    state: State | None = obj.evaluate(start)
+    for _ in range(_DROP_MAX_STEPS):
+        if state is None or free.size == 0:
+            break
+        try:
+            chol = cho_factor(state.info[np.ix_(free, free)], lower=True, check_finite=False)
+        except LinAlgError:
+            break
+        step = cho_solve(chol, state.score[free], check_finite=False)
+        decrement = float(state.score[free] @ step)
+        if 0.0 <= decrement <= DECREMENT_TOL:
+            return state.penalized_loglik + 0.5 * decrement
+        state = _halving_step(obj, state, free, step)
+    if state is not None and free.size == 0:
+        return state.penalized_loglik
+    fixed_at = dict.fromkeys(fixed, 0.0)  # fall back to the general constrained refit
+    return constrained_fit(blocks, fit, fixed_at, start=start).penalized_loglik
+
+
+def _halving_step(obj: Objective, state: State, free: np.ndarray, step: np.ndarray) -> State | None:
+    """The Newton step, halved until the (penalised) log-likelihood does not decrease."""
+    floor = state.penalized_loglik - 1e-12 * abs(state.penalized_loglik)
+    for _ in range(40):
+        coef = state.coef.copy()
+        coef[free] += step
+        new = obj.evaluate(coef)
+        if new is not None and new.penalized_loglik >= floor:
+            return new
+        step = step / 2.0
+    return None
 
 
 @dataclass(frozen=True)

@@ -30,6 +30,7 @@ from numpy.typing import ArrayLike
 
 from service.errors import DataError, SpecError
 from service.stats._outcome_arrays import FloatArray
+from service.stats.columns import CodedLabels
 
 __all__ = [
     "CategoricalReference",
@@ -158,8 +159,20 @@ def numeric_reference(
     return NumericReference(ref.edges, tuple(float(c) for c in counts / x.size), int(x.size))
 
 
-def categorical_reference(values: ArrayLike | list[Any]) -> CategoricalReference:
+def categorical_reference(values: ArrayLike | list[Any] | CodedLabels) -> CategoricalReference:
     """Reference for a categorical feature: share of each distinct level (sorted by name)."""
+    flat = isinstance(values, list) or (isinstance(values, np.ndarray) and values.ndim == 1)
+    if isinstance(values, CodedLabels) or (flat and set(map(type, values)) == {str}):  # type: ignore[arg-type]
+        coded = values if isinstance(values, CodedLabels) else CodedLabels.from_strings(values)
+        if len(coded) == 0:
+            raise DataError("no values given", field="values", value=0, remedy="pass values")
+        order = sorted(range(len(coded.levels)), key=coded.levels.__getitem__)
+        counts = coded.counts()[order]
+        return CategoricalReference(
+            tuple(coded.levels[j] for j in order),
+            tuple(float(c) for c in counts / len(coded)),
+            len(coded),
+        )
     arr = np.asarray([str(v) for v in np.asarray(values, dtype=object).ravel()], dtype=object)
     if arr.size == 0:
         raise DataError("no values given", field="values", value=0, remedy="pass values")
