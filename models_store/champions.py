@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+import functools
+
 from sqlalchemy import select
+from sqlalchemy.engine import Dialect
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -31,23 +34,32 @@ def current_champion(*, session: Session, model: RiskModel) -> int | None:
 
 
 def model_with_champion(*, session: Session, name: str) -> tuple[RiskModel, int | None] | None:
-    """The model called ``name`` and its champion number in one Core select (None: no model).
+    """The model called ``name`` and its champion number in one read (None: no such model).
 
-    For the scoring path: one round trip, no ORM identity-map work; the model comes back as a
-    detached :class:`RiskModel` holding ``id``, ``name`` and ``description``.
+    For the scoring path: one plain SQL statement through the session's connection (no
+    statement building, cache-key or ORM work per call); the model comes back as a detached
+    :class:`RiskModel` holding ``id``, ``name`` and ``description``.
     """
-    latest = (
-        select(ChampionChange.version_number)
-        .where(ChampionChange.model_id == RiskModel.id)
-        .order_by(ChampionChange.seq.desc())
-        .limit(1)
-        .scalar_subquery()
-    )
-    stmt = select(RiskModel.id, RiskModel.description, latest).where(RiskModel.name == name)
-    row = session.execute(stmt).first()
+    conn = session.connection()
+    row = conn.exec_driver_sql(_model_with_champion_sql(conn.dialect), (name,)).first()
     if row is None:
         return None
     return RiskModel(id=row[0], name=name, description=row[1]), row[2]
+
+
+@functools.lru_cache(maxsize=32)
+def _model_with_champion_sql(dialect: Dialect) -> str:
+    q = dialect.identifier_preparer.quote
+    mark = "?" if dialect.paramstyle == "qmark" else "%s"
+    model, change = q(RiskModel.__tablename__), q(ChampionChange.__tablename__)
+    latest = (
+        f"SELECT c.{q('version_number')} FROM {change} c WHERE c.{q('model_id')} = m.{q('id')}"
+        f" ORDER BY c.{q('seq')} DESC LIMIT 1"
+    )
+    return (
+        f"SELECT m.{q('id')}, m.{q('description')}, ({latest}) FROM {model} m"
+        f" WHERE m.{q('name')} = {mark}"
+    )
 
 
 def set_champion(
