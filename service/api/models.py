@@ -34,7 +34,7 @@ def get_models(
     session: SessionDep,
     _: ScorerAccess,
     limit: int = Query(100, ge=1, le=1000),
-    offset: int = Query(0, ge=0),
+    offset: int = Query(0, ge=0, le=2_147_483_647),
 ) -> dict[str, Any]:
     items = [
         model_public(session, m) for m in list_models(session=session, limit=limit, offset=offset)

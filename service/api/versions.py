@@ -14,6 +14,7 @@ from fastapi.exceptions import RequestValidationError
 from pydantic import ValidationError
 from starlette.concurrency import run_in_threadpool
 from starlette.datastructures import UploadFile
+from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from models_store.champions import current_champion
 from models_store.orm import ModelVersion, RiskModel
@@ -69,7 +70,17 @@ async def _parse_fit_request(request: Request) -> tuple[VersionSpec, dict[str, A
     """Spec and raw columns from a JSON or multipart body, and the data layout."""
     content_type = request.headers.get("content-type", "")
     if content_type.startswith("multipart/form-data"):
-        async with request.form() as form:  # closes the spooled upload files
+        try:
+            form = await request.form()
+        except StarletteHTTPException as exc:  # malformed multipart: the client's input
+            raise DataError(
+                f"the multipart body cannot be read ({exc.detail})",
+                field="body",
+                value=content_type,
+                remedy="send a well-formed multipart/form-data body with a boundary, "
+                "e.g. curl -F spec=@spec.json -F data=@segments.csv",
+            ) from exc
+        try:
             spec_part, data_part = form.get("spec"), form.get("data")
             if spec_part is None or not isinstance(data_part, UploadFile):
                 raise DataError(
@@ -81,6 +92,8 @@ async def _parse_fit_request(request: Request) -> tuple[VersionSpec, dict[str, A
             spec_raw = await spec_part.read() if isinstance(spec_part, UploadFile) else spec_part
             content = await data_part.read()
             filename, upload_type = data_part.filename, data_part.content_type
+        finally:
+            await form.close()  # the spooled upload files
         spec = _validated(VersionSpec, spec_raw)
         table = read_table(content, filename=filename, content_type=upload_type)
         return spec, table_columns(table, needed_columns(spec)), "columns"

@@ -219,6 +219,17 @@ CATALOGUE: list[tuple[str, str, str, dict[str, Any], int, str]] = [
     ("malformed-parquet", "POST", FIT, upload(b"PAR1garbagePAR1", "d.parquet"), 422, "data"),
     ("truncated-parquet", "POST", FIT, upload(parquet_bytes()[:-100], "d.parquet"), 422, "data"),
     (
+        # found by schemathesis: Starlette's bare 400 for a body that is not multipart at all
+        "broken-multipart-body",
+        "POST",
+        FIT,
+        {"content": b"--xx\r\nbroken", "headers": {"content-type": "multipart/form-data; b=zz"}},
+        422,
+        "body",
+    ),
+    # found by schemathesis: an offset beyond 64 bits reached SQLite as an OverflowError (500)
+    ("offset-beyond-64-bits", "GET", "/risk-models?offset=" + "9" * 30, {}, 422, "offset"),
+    (
         "sql-looking-model-name",
         "POST",
         "/risk-models/';%20DROP%20TABLE%20score;--/scores",
