@@ -49,7 +49,7 @@ _SETTING_HINT = "(an operator may raise RISKFIT_{name})"
 JSON_SCOPE_KEY = "riskfit.json"  # the parsed JSON body, for a route that reads it itself
 _WALK_BELOW_BYTES = 4096  # smaller bodies: the Python walk is cheaper than the byte scan
 _QUOTE, _BACKSLASH = ord('"'), ord("\\")
-_OPEN, _CLOSE = np.frombuffer(b"[{", np.uint8), np.frombuffer(b"]}", np.uint8)
+_BRACKETS = b"[{]}"  # opening pair, closing pair
 
 
 def too_large(what: str, size: int, limit: int, setting: str, remedy: str) -> LimitExceededError:
@@ -173,7 +173,8 @@ def _bytes_may_exceed(raw: bytes, max_str: int, max_depth: int) -> bool:
         return True  # not a well-formed string sequence: let the walk decide
     if quotes.size and int((quotes[1::2] - quotes[0::2]).max()) - 1 > max_str:
         return True
-    opens, closes = np.isin(a, _OPEN), np.isin(a, _CLOSE)
+    o1, o2, c1, c2 = _BRACKETS
+    opens, closes = (a == o1) | (a == o2), (a == c1) | (a == c2)
     at = np.flatnonzero(opens | closes)
     outside = at[np.searchsorted(quotes, at) % 2 == 0]  # an even number of quotes before
     step = np.where(opens[outside], 1, -1)
