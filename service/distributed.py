@@ -183,7 +183,7 @@ class DaskEngine:
         )
 
     def hat(self, keep: Sequence[int] | None, coef: np.ndarray, chol: np.ndarray) -> np.ndarray:
-        return sum(self._map(_hat, keep, coef, chol), np.zeros_like(coef))  # type: ignore[no-any-return]
+        return sum(self._map(_hat, keep, coef, chol), np.zeros_like(coef))
 
     def gathered(self) -> BlockSource:
         """All rows at the client, fetched lazily (only the separation programme uses it)."""

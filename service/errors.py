@@ -36,7 +36,7 @@ Tree::
     │   └── RefitInProgressError
     ├── AuthenticationError          no or unknown key
     ├── PermissionDeniedError        key lacks the role
-    └── StoreError                   database unreachable / integrity problem (not the client's fault)
+    └── StoreError                   database down or integrity problem (not the client's fault)
 """
 
 from __future__ import annotations

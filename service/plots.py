@@ -26,12 +26,13 @@ from matplotlib import rc_context
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, MaxNLocator
+from matplotlib.typing import RcKeyType
 
 __all__ = ["PlotFormat", "drift_figure", "psi_figure", "reliability_figure", "render"]
 
 PlotFormat = Literal["svg", "png"]
 INK, ACCENT, ALERT, MUTED, BAND = "#23303d", "#12808c", "#b9472f", "#8a96a3", "#e7f1f2"
-STYLE = {
+STYLE: dict[RcKeyType, Any] = {
     "font.family": "DejaVu Sans",
     "font.size": 9,
     "axes.edgecolor": MUTED,

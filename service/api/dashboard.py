@@ -56,7 +56,9 @@ JSON_ERRORS: dict[int | str, dict[str, Any]] = {
     413: _json_error("Request body over the size limit."),
     422: _json_error("Invalid path, query or form value."),
 }
-REDIRECT = {303: {"description": "A browser without a session goes to the sign-in page."}}
+REDIRECT: dict[int | str, dict[str, Any]] = {
+    303: {"description": "A browser without a session goes to the sign-in page."}
+}
 Access = Annotated[Principal, Depends(dashboard_access)]
 
 

@@ -71,7 +71,7 @@ def input_drift(
         "features": [],
     }
     row = None if version is None else get_version(session=session, model=model, number=version)
-    if row is None:
+    if version is None or row is None:
         body.update(status="no_version", n=0)
         return body
     rows = recent_inputs(session, model, version, since, max_records)

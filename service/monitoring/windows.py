@@ -62,7 +62,7 @@ def _enough(y: np.ndarray, min_outcomes: int, min_events: int) -> bool:
 
 def _measures(y: np.ndarray, p: np.ndarray, level: float) -> dict[str, Any]:
     slope, _ = calibration_slope(y, p, confidence_level=level)
-    return jsonable(
+    out: dict[str, Any] = jsonable(
         {
             "observed_expected": observed_expected(y, p, confidence_level=level),
             "calibration_in_the_large": calibration_intercept(y, p, confidence_level=level),
@@ -71,6 +71,7 @@ def _measures(y: np.ndarray, p: np.ndarray, level: float) -> dict[str, Any]:
             "auc": auc_delong(y, p, confidence_level=level),
         }
     )
+    return out
 
 
 def _iso(t_us: int) -> str:

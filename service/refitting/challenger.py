@@ -52,7 +52,7 @@ def _null_loglik(y: np.ndarray) -> float:
     """Intercept-only log-likelihood without offset: n1 log(pbar) + n0 log(1 - pbar)."""
     n, n1 = float(y.size), float(y.sum())
     n0 = n - n1
-    return sum(k * np.log(k / n) for k in (n1, n0) if k > 0)
+    return float(sum(k * np.log(k / n) for k in (n1, n0) if k > 0))
 
 
 def _on_terms(

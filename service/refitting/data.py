@@ -24,7 +24,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from models_store.orm import Outcome, RiskModel, Score
-from service.data_io import TrainingData, coerce_column, columns_from_rows
+from service.data_io import FieldNamer, TrainingData, coerce_column, columns_from_rows
 from service.errors import DataError, InvalidInputError, NotEnoughOutcomesError
 from service.fitting import data_fingerprint
 from service.scoring import LoadedVersion
@@ -104,6 +104,11 @@ def _rows(
     return list(session.execute(stmt.order_by(Score.created_at, Score.id)).all())
 
 
+def _score_field(name: str) -> FieldNamer:
+    """Names the field of feature ``name`` in the i-th logged score, e.g. ``scores[3].age``."""
+    return lambda i: f"scores[{i}].{name}"
+
+
 def _columns(
     inputs: list[dict[str, Any]], ids: list[str], v: LoadedVersion
 ) -> dict[str, np.ndarray]:
@@ -111,7 +116,7 @@ def _columns(
     try:
         raw = columns_from_rows(inputs, list(v.kinds), "scores")
         return {
-            name: coerce_column(name, kind, raw[name], lambda i, n=name: f"scores[{i}].{n}")
+            name: coerce_column(name, kind, raw[name], _score_field(name))
             for name, kind in v.kinds.items()
         }
     except InvalidInputError as exc:

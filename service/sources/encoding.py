@@ -76,7 +76,8 @@ def _log(x: np.ndarray, name: str, start: int) -> np.ndarray:
             value=float(x[i]),
             remedy=f"give a positive {name!r}, or drop the log transform from the spec",
         )
-    return np.log(x)
+    out: np.ndarray = np.log(x)
+    return out
 
 
 def _feed(num: _Numeric, chunk: Chunk) -> None:

@@ -46,7 +46,7 @@ def _from_key(key: int) -> float:
     return float(np.array([bits], dtype=np.uint64).view(np.float64)[0])
 
 
-def quantile_ranks(n: int, quantiles: Sequence[float], method: str) -> list[int]:
+def quantile_ranks(n: int, quantiles: Sequence[float] | np.ndarray, method: str) -> list[int]:
     """The 0-based ranks ``np.quantile`` reads for ``n`` values (``linear`` or ``lower``)."""
     virtual = (n - 1) * np.asarray(quantiles, dtype=np.float64)
     lo = np.floor(virtual).astype(np.intp)
@@ -154,7 +154,9 @@ class OrderStatistics:
         return self._values[rank]
 
 
-def quantiles_from(stats: OrderStatistics, quantiles: Sequence[float], method: str) -> np.ndarray:
+def quantiles_from(
+    stats: OrderStatistics, quantiles: Sequence[float] | np.ndarray, method: str
+) -> np.ndarray:
     """``np.quantile(x, quantiles, method=method)`` from the order statistics of ``x``."""
     n = stats.n
     q = np.asarray(quantiles, dtype=np.float64)

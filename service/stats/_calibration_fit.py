@@ -72,8 +72,8 @@ def _newton(
         return _failed(1 if x is None else 2, n, events)
     coef = np.array([0.0] if x is None else [0.0, 1.0])
 
-    def eta_of(c: np.ndarray) -> FloatArray:
-        return offset + c[0] if x is None else c[0] + c[1] * x
+    def eta_of(c: FloatArray) -> FloatArray:
+        return offset + float(c[0]) if x is None else float(c[0]) + float(c[1]) * x
 
     eta = eta_of(coef)
     ll: float | None = None

@@ -16,7 +16,9 @@ from tests.deploy._commands import check_riskfit_argv
 
 REPO = Path(__file__).resolve().parents[2]
 README = (REPO / "README.md").read_text(encoding="utf-8")
-TEST_COMMAND = 'python3 -m venv .venv && .venv/bin/pip install ".[test]" && .venv/bin/python -m pytest'
+TEST_COMMAND = (
+    'python3 -m venv .venv && .venv/bin/pip install ".[test]" && .venv/bin/python -m pytest'
+)
 SERVE_COMMAND = "python3 -m venv .venv && .venv/bin/pip install . && .venv/bin/riskfit serve --demo"
 
 
@@ -82,7 +84,9 @@ def test_the_readme_example_spec_fits_on_scenario_data(tmp_path: Path) -> None:
     settings = Settings(database_url=f"sqlite:///{tmp_path / 'readme.db'}", auth_required=False)
     api = ApiClient(create_app(settings))
     try:
-        answer = api.post("/risk-models/my-mains/versions", json={**spec, "data": {"columns": data}})
+        answer = api.post(
+            "/risk-models/my-mains/versions", json={**spec, "data": {"columns": data}}
+        )
         assert answer.status_code == 201, answer.text
         body = answer.json()
         names = [row["name"] for row in body["term_table"]["terms"]]

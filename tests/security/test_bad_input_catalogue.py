@@ -322,7 +322,14 @@ CATALOGUE: list[tuple[str, str, str, dict[str, Any], int, str]] = [
         422,
         "outcomes[0]",
     ),
-    ("not-utf8", "POST", SCORE, {"content": b'{"records": "\xff\xfe"}', "headers": RAW}, 422, "body"),
+    (
+        "not-utf8",
+        "POST",
+        SCORE,
+        {"content": b'{"records": "\xff\xfe"}', "headers": RAW},
+        422,
+        "body",
+    ),
     ("not-json", "POST", SCORE, {"content": b"records=1", "headers": RAW}, 422, ""),
 ]
 

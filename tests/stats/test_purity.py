@@ -50,7 +50,8 @@ def test_importing_stats_loads_no_web_or_database_stack() -> None:
         "for m in pkgutil.walk_packages(s.__path__, 'service.stats.'):\n"
         "    importlib.import_module(m.name)\n"
         "bad = sorted({n.split('.')[0] for n in sys.modules} & "
-        "{'fastapi', 'starlette', 'pydantic', 'sqlalchemy', 'alembic', 'httpx', 'pyarrow', 'matplotlib'})\n"
+        "{'fastapi', 'starlette', 'pydantic', 'sqlalchemy', 'alembic', 'httpx', 'pyarrow', "
+        "'matplotlib'})\n"
         "print(','.join(bad))\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
