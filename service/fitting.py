@@ -125,7 +125,11 @@ def data_fingerprint(
         cols[weights] = data.weights
     if offset and data.offset is not None:
         cols[offset] = data.offset
-    return fingerprint_columns(data.n_obs, {k: (lambda v=v: [v]) for k, v in cols.items()})
+    return fingerprint_columns(data.n_obs, {k: _whole(v) for k, v in cols.items()})
+
+
+def _whole(values: np.ndarray | CodedLabels) -> Callable[[], list[np.ndarray | CodedLabels]]:
+    return lambda: [values]
 
 
 def fingerprint_columns(
@@ -147,7 +151,7 @@ def fingerprint_columns(
                 h.update(b"f" if is_float else b"s")
                 tagged = True
             if is_float:
-                h.update(np.ascontiguousarray(values, dtype="<f8") + 0.0)
+                h.update((np.ascontiguousarray(values, dtype="<f8") + 0.0).tobytes())
             else:
                 h.update(_text_bytes(values))
     return h.hexdigest()
@@ -296,7 +300,7 @@ def fit_version(
     check_spec(spec)
     options = spec.options
     features = [f.model_dump(exclude_none=True) for f in spec.features]
-    columns = {**data.columns, **data.coded}  # categorical features as codes where known
+    columns: dict[str, np.ndarray | CodedLabels] = {**data.columns, **data.coded}  # codes if known
     encoding = learn_encoding(features, columns, interactions=spec.interactions)
     X = design_matrix(encoding, columns).X
     try:

@@ -299,7 +299,7 @@ def _distinct_text(values: Any) -> list[str]:
     seq = values.tolist() if isinstance(values, np.ndarray) else list(values)
     distinct = dict.fromkeys(seq)
     if set(map(type, distinct)) <= {str}:
-        return list(distinct)  # type: ignore[arg-type]
+        return list(distinct)
     return list(dict.fromkeys(map(str, distinct)))
 
 

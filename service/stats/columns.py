@@ -43,7 +43,8 @@ class CodedLabels:
         """The labels as an object array of ``str`` (n,)."""
         table = np.empty(len(self.levels), dtype=object)
         table[:] = self.levels
-        return table[self.codes]
+        out: np.ndarray = table[self.codes]
+        return out
 
     @classmethod
     def compact(cls, codes: np.ndarray, levels: Sequence[str]) -> CodedLabels:
@@ -75,8 +76,11 @@ def coded_labels(col: Any, name: str, prefix: str) -> CodedLabels:
 
 
 def get_column(
-    columns: Mapping[str, np.ndarray | Sequence[Any]], name: str, prefix: str, n: int | None
-) -> np.ndarray | Sequence[Any]:
+    columns: Mapping[str, np.ndarray | Sequence[Any] | CodedLabels],
+    name: str,
+    prefix: str,
+    n: int | None,
+) -> np.ndarray | Sequence[Any] | CodedLabels:
     """The column ``name``; MissingFeatureError if absent, DataError if its length differs."""
     if name not in columns:
         raise MissingFeatureError(

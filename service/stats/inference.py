@@ -196,7 +196,7 @@ def _full_information(fit: LogisticFit) -> np.ndarray | None:
         return None
 
 
-def _warm_start(fit: LogisticFit, info: np.ndarray | None, fixed: list[int]) -> np.ndarray:
+def _warm_start(fit: LogisticFit, info: np.ndarray | None, fixed: np.ndarray) -> np.ndarray:
     """Restricted maximum of the full fit's quadratic approximation (module docstring)."""
     coef = fit.coef.astype(np.float64, copy=True)
     free = np.setdiff1d(np.arange(coef.size), fixed)
@@ -216,7 +216,7 @@ def _restricted_loglik(
     blocks: BlockSource, fit: LogisticFit, info: np.ndarray | None, fixed: list[int]
 ) -> float:
     """Maximum (penalised) log-likelihood with ``coef[fixed] = 0`` (Newton, decrement stop)."""
-    start = _warm_start(fit, info, fixed)
+    start = _warm_start(fit, info, np.asarray(fixed, dtype=np.intp))
     mask = np.ones(start.size)
     if fit.intercept_index is not None:
         mask[fit.intercept_index] = 0.0

@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import itertools
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -163,7 +163,11 @@ def categorical_reference(values: ArrayLike | list[Any] | CodedLabels) -> Catego
     """Reference for a categorical feature: share of each distinct level (sorted by name)."""
     flat = isinstance(values, list) or (isinstance(values, np.ndarray) and values.ndim == 1)
     if isinstance(values, CodedLabels) or (flat and set(map(type, values)) == {str}):  # type: ignore[arg-type]
-        coded = values if isinstance(values, CodedLabels) else CodedLabels.from_strings(values)
+        coded = (
+            values
+            if isinstance(values, CodedLabels)
+            else CodedLabels.from_strings(cast("list[str]", values))
+        )
         if len(coded) == 0:
             raise DataError("no values given", field="values", value=0, remedy="pass values")
         order = sorted(range(len(coded.levels)), key=coded.levels.__getitem__)
