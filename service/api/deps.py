@@ -4,20 +4,19 @@
 * :data:`SessionDep` - one SQLAlchemy session per request from ``app.state.session_factory``;
   domain operations commit, the session is closed (and anything uncommitted rolled back)
   when the request ends.
-
-Dependencies that do no blocking I/O are ``async`` so that they run on the event loop
-instead of costing a worker-thread hop each: the settings, making a session (it connects
-lazily), closing one that holds no transaction, and a role check of a caller already
-identified in this request. Everything that may touch the store runs in the thread pool.
 * :data:`ModelDep` - the ``{model}`` path parameter loaded from the store, or
   :class:`~service.errors.ModelNotFoundError` (404). Written once here, never per route.
 * :data:`ScorerAccess`, :data:`ModelerAccess`, :data:`AdminAccess` - role gates built by
   :func:`require_role`. Roles are ordered scorer < modeler < admin.
 
-Access seam: :func:`require_role` asks ``app.state.access_checker`` (a callable
-``(request, role) -> Principal``) when one is installed, and otherwise lets every request in
-as an anonymous principal. The API-key module (``service/security.py``) installs the checker;
-routes need no change.
+Dependencies that do no blocking I/O are ``async`` so that they run on the event loop
+instead of costing a worker-thread hop each: the settings, making a session (it connects
+lazily), closing one that holds no transaction, and a role check of a caller already
+identified in this request. Everything that may touch the store runs in the thread pool.
+
+Access: :func:`require_role` checks the API key through :func:`service.security.authorize`
+(401 for a missing, unknown or revoked key; 403 naming the role needed). Tests may install
+``app.state.access_checker`` (a callable ``(request, role) -> Principal``) to replace it.
 """
 
 from __future__ import annotations

@@ -226,6 +226,7 @@ def psi(
     reference: Reference, values: ArrayLike, *, epsilon: float = 1e-4, field: str = "values"
 ) -> PsiResult:
     """PSI of ``values`` (n,) against ``reference``, with a per-bin table."""
+    labels: list[tuple[str, float | None, float | None]]
     if isinstance(reference, NumericReference):
         x = _finite(values, field)
         counts = np.bincount(reference.assign(x), minlength=len(reference.shares))
@@ -242,7 +243,8 @@ def psi(
         known = lv[order][pos_c] == arr
         idx = np.where(known, order[pos_c], lv.size)
         counts = np.bincount(idx, minlength=lv.size + 1)
-        labels = [(str(v), None, None) for v in reference.levels] + [(UNSEEN, None, None)]
+        names = [*(str(v) for v in reference.levels), UNSEEN]
+        labels = [(name, None, None) for name in names]
         ref_shares = np.r_[np.asarray(reference.shares), 0.0]
         if counts[-1] == 0:  # no unseen values: leave the extra bin out of the table
             counts, labels, ref_shares = counts[:-1], labels[:-1], ref_shares[:-1]
