@@ -31,14 +31,14 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy.linalg import LinAlgError, cho_factor, cho_solve, cholesky
+from scipy.linalg import LinAlgError, cholesky
 from scipy.special import logit
 
 from service.errors import RankDeficientError, SpecError
 from service.stats.blocks import Block, BlockSource, sub_blocks
-from service.stats.diagnostics import check_counts, check_rank, check_separation
+from service.stats.diagnostics import check_counts, check_rank
 from service.stats.firth import half_logdet, hat_score_adjustment
-from service.stats.fit import LogisticFit, Method, _options, _start_totals
+from service.stats.fit import LogisticFit, Method, _options, _start_totals, finish_fit
 from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import NewtonResult, Objective, State, newton
 
@@ -300,50 +300,13 @@ def _finish(
     ridge_lambda: float,
     intercept_index: int | None,
 ) -> LogisticFit:
-    st = res.state
-    p = st.coef.shape[0]
-    try:
-        cov = cho_solve(cho_factor(st.info, lower=True), np.eye(p))
-    except np.linalg.LinAlgError:
-        cov = np.full((p, p), np.inf)
-    cov = 0.5 * (cov + cov.T)
-    se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-    if method == "mle":
-        suspicious = not res.converged or st.n_extreme > 0
-        check_separation(
-            engine.gathered(), summary, st.coef, se, names, intercept_index, suspicious=suspicious
-        )
-    stop = res.stop_reason
-    warnings: list[str] = []
-    if not res.converged:
-        stop += '; try a larger max_iter, or method="firth" / "ridge" if estimates diverge'
-        warnings.append("not converged: " + stop)
-    if st.n_extreme:
-        warnings.append(f"{st.n_extreme} fitted probabilities are numerically 0 or 1")
-    null_ll, null_pen = _null(engine, summary, intercept_index, method)
-    ll = st.loglik
-    return LogisticFit(
-        term_names=names,
-        coef=st.coef,
-        cov=cov,
-        std_error=se,
-        loglik=ll,
-        penalized_loglik=st.penalized_loglik,
-        null_loglik=null_ll,
-        deviance=-2.0 * ll,
-        null_deviance=-2.0 * null_ll,
-        n_obs=summary.n_obs,
-        sum_weights=summary.sum_weights,
-        n_events=summary.n_events,
-        method=method,
-        ridge_lambda=float(ridge_lambda),
-        converged=res.converged,
-        iterations=res.iterations,
-        stop_reason=stop,
-        aic=-2.0 * ll + 2.0 * p,
-        bic=-2.0 * ll + p * float(np.log(summary.sum_weights)),
-        mcfadden_r2=1.0 - ll / null_ll if null_ll < 0 else float("nan"),
-        warnings=tuple(warnings),
-        intercept_index=intercept_index,
-        null_penalized_loglik=null_pen,
+    return finish_fit(
+        summary,
+        res,
+        names,
+        method,
+        ridge_lambda,
+        intercept_index,
+        separation_blocks=engine.gathered,
+        null_logliks=lambda: _null(engine, summary, intercept_index, method),
     )

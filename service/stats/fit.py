@@ -18,7 +18,7 @@ there is no intercept). For penalised methods these use the unpenalised loglik a
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Literal
 
@@ -31,9 +31,16 @@ from service.errors import RankDeficientError, SpecError
 from .blocks import BlockSource, array_blocks, sub_blocks
 from .diagnostics import check_counts, check_rank, check_separation
 from .likelihood import DataSummary, Totals, loglik_pass, scan
-from .newton import Objective, State, newton
+from .newton import NewtonResult, Objective, State, newton
 
-__all__ = ["LogisticFit", "Method", "constrained_fit", "fit_logistic", "fit_logistic_blocks"]
+__all__ = [
+    "LogisticFit",
+    "Method",
+    "constrained_fit",
+    "finish_fit",
+    "fit_logistic",
+    "fit_logistic_blocks",
+]
 
 Method = Literal["mle", "firth", "ridge"]
 _METHODS = ("mle", "firth", "ridge")
@@ -204,19 +211,49 @@ def fit_logistic_blocks(
             details={"terms": list(names)},
         )
     res = newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
-    return _finish(blocks, summary, res.state, names, method, ridge_lambda, intercept_index, res)
+    return _finish(blocks, summary, res, names, method, ridge_lambda, intercept_index)
 
 
 def _finish(
     blocks: BlockSource,
     summary: DataSummary,
-    st: State,
+    res: NewtonResult,
     names: tuple[str, ...],
     method: str,
     ridge_lambda: float,
     intercept_index: int | None,
-    res: object,
 ) -> LogisticFit:
+    return finish_fit(
+        summary,
+        res,
+        names,
+        method,
+        ridge_lambda,
+        intercept_index,
+        separation_blocks=lambda: blocks,
+        null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
+    )
+
+
+def finish_fit(
+    summary: DataSummary,
+    res: NewtonResult,
+    names: tuple[str, ...],
+    method: str,
+    ridge_lambda: float,
+    intercept_index: int | None,
+    *,
+    separation_blocks: Callable[[], BlockSource],
+    null_logliks: Callable[[], tuple[float, float]],
+) -> LogisticFit:
+    """Turn the last Newton state into a :class:`LogisticFit` (shared by every engine).
+
+    ``cov = I(coef)^-1`` from the (penalised) information of the last pass, symmetrised;
+    ``se = sqrt(diag(cov))``. For ``mle`` the existence check runs on the blocks that
+    ``separation_blocks()`` gives (an engine may gather them only then); ``null_logliks()``
+    returns the intercept-only (unpenalised, penalised) log-likelihoods.
+    """
+    st = res.state
     p = st.coef.shape[0]
     try:
         cov = cho_solve(cho_factor(st.info, lower=True), np.eye(p))
@@ -224,20 +261,20 @@ def _finish(
         cov = np.full((p, p), np.inf)
     cov = 0.5 * (cov + cov.T)
     se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-    converged = bool(getattr(res, "converged", False))
+    converged = bool(res.converged)
     if method == "mle":
         suspicious = not converged or st.n_extreme > 0
         check_separation(
-            blocks, summary, st.coef, se, names, intercept_index, suspicious=suspicious
+            separation_blocks(), summary, st.coef, se, names, intercept_index, suspicious=suspicious
         )
-    stop = str(getattr(res, "stop_reason", ""))
+    stop = str(res.stop_reason)
     warnings: list[str] = []
     if not converged:
         stop += '; try a larger max_iter, or method="firth" / "ridge" if estimates diverge'
         warnings.append("not converged: " + stop)
     if st.n_extreme:
         warnings.append(f"{st.n_extreme} fitted probabilities are numerically 0 or 1")
-    null_ll, null_pen = _null_loglik(blocks, summary, intercept_index, method)
+    null_ll, null_pen = null_logliks()
     ll = st.loglik
     return LogisticFit(
         term_names=names,
@@ -255,7 +292,7 @@ def _finish(
         method=method,
         ridge_lambda=float(ridge_lambda),
         converged=converged,
-        iterations=int(getattr(res, "iterations", 0)),
+        iterations=int(res.iterations),
         stop_reason=stop,
         aic=-2.0 * ll + 2.0 * p,
         bic=-2.0 * ll + p * float(np.log(summary.sum_weights)),
