@@ -16,6 +16,19 @@ is looked up by its hash (a unique index) and the stored hash is compared once m
 
 Roles are ordered ``scorer < modeler < admin``; a route states the least role it admits.
 
+Key check cost
+--------------
+:func:`authenticate_first` runs on the event loop. With ``auth_required`` off it does no I/O
+at all. With it on, each app keeps a small in-process cache ``key_hash -> (key id, name, role,
+prefix, revoked_at)`` (:class:`KeyCache`); an entry is trusted for :data:`KEY_CACHE_TTL`
+seconds after it was read from the store, so a request with a recently seen key costs no
+worker-thread hop and no store read, and an unseen or stale key costs one hop (the store read,
+and the ``last_used_at`` touch). Revocation through :func:`revoke` evicts the key from every
+cache of this process (at once, and again when the revoking transaction commits); a
+revocation made elsewhere (another worker process, ``riskfit keys revoke``) takes effect
+within :data:`KEY_CACHE_TTL` seconds. Unknown keys are never cached. Both 401 messages and
+the 403 role check are the same whether the key came from the cache or the store.
+
 Audit
 -----
 :func:`install_audit` hooks a session so that, in the same transaction as the change itself,
@@ -30,12 +43,17 @@ from __future__ import annotations
 import hashlib
 import hmac
 import secrets
+import threading
+import time
+import weakref
 from dataclasses import dataclass
+from datetime import datetime
 from typing import Any
 
 from fastapi import Request
 from sqlalchemy import event, inspect
 from sqlalchemy.orm import Session
+from starlette.concurrency import run_in_threadpool
 
 from models_store.audit import record
 from models_store.keys import create_key, find_key_by_hash, get_key, revoke_key, touch_key
@@ -50,8 +68,10 @@ from service.errors import (
 )
 
 __all__ = [
+    "KEY_CACHE_TTL",
     "KEY_PREFIX",
     "IssuedKey",
+    "KeyCache",
     "authenticate_first",
     "authorize",
     "hash_key",
@@ -68,6 +88,9 @@ KEY_BYTES = 32
 PREFIX_LEN = 10
 _AUDIT_FLAG = "riskfit_audit_key_id"
 _CREATE_HINT = "an admin creates one with `riskfit keys create --role scorer` or POST /api-keys"
+KEY_CACHE_TTL = 5.0  # seconds a key read from the store is trusted without reading it again
+_KEY_CACHE_MAX = 4096  # entries per app (known keys only); cleared when full
+_clock = time.monotonic  # the cache's clock (tests move it)
 
 
 @dataclass(frozen=True)
@@ -137,6 +160,9 @@ def revoke(*, session: Session, key_id: int, by_key_id: int | None = None) -> Ap
     was_active = existing.revoked_at is None
     row = revoke_key(session=session, key_id=key_id)
     assert row is not None
+    digest = row.key_hash
+    _forget_everywhere(digest)  # this process's caches; other processes: KEY_CACHE_TTL
+    event.listen(session, "after_commit", lambda _s: _forget_everywhere(digest), once=True)
     if was_active:
         record(
             session=session,
@@ -164,37 +190,105 @@ def presented_key(request: Request) -> str | None:
     return key or None
 
 
-def _known_key(session: Session, settings: Settings, key: str) -> ApiKey:
-    digest = hash_key(key, settings)
-    row = find_key_by_hash(session=session, key_hash=digest, active_only=False)
-    if row is None or not hmac.compare_digest(row.key_hash, digest):
+@dataclass(frozen=True)
+class _KeyFacts:
+    """What the key check needs of a stored key (no secret: ``key_hash`` is the digest)."""
+
+    id: int
+    name: str
+    role: str
+    prefix: str
+    key_hash: str
+    revoked_at: datetime | None
+
+
+class KeyCache:
+    """``key_hash -> (facts, read at)`` of one app, each entry trusted for ``ttl`` seconds.
+
+    The clock is :func:`time.monotonic` (``_clock``); reads and writes of the dict are atomic
+    under the GIL, the lock only serialises clearing a full cache.
+    """
+
+    def __init__(self, ttl: float = KEY_CACHE_TTL, max_entries: int = _KEY_CACHE_MAX) -> None:
+        self.ttl = ttl
+        self.max_entries = max_entries
+        self._items: dict[str, tuple[_KeyFacts, float]] = {}
+        self._lock = threading.Lock()
+        _CACHES.add(self)
+
+    def get(self, digest: str) -> _KeyFacts | None:
+        hit = self._items.get(digest)
+        if hit is None or _clock() - hit[1] >= self.ttl:
+            return None
+        return hit[0]
+
+    def put(self, row: ApiKey) -> None:
+        facts = _KeyFacts(row.id, row.name, row.role, row.prefix, row.key_hash, row.revoked_at)
+        with self._lock:
+            if len(self._items) >= self.max_entries:
+                self._items.clear()
+            self._items[row.key_hash] = (facts, _clock())
+
+    def forget(self, digest: str) -> None:
+        self._items.pop(digest, None)
+
+
+_CACHES: weakref.WeakSet[KeyCache] = weakref.WeakSet()
+_CACHES_LOCK = threading.Lock()
+
+
+def _forget_everywhere(digest: str) -> None:
+    for cache in list(_CACHES):
+        cache.forget(digest)
+
+
+def _cache_of(app: Any) -> KeyCache:
+    cache: KeyCache | None = getattr(app.state, "key_cache", None)
+    if cache is None:
+        with _CACHES_LOCK:
+            cache = getattr(app.state, "key_cache", None)
+            if cache is None:
+                cache = app.state.key_cache = KeyCache()
+    return cache
+
+
+def _unknown_key() -> AuthenticationError:
+    return AuthenticationError(
+        "the API key is not known to this service",
+        field="Authorization",
+        value=None,  # never echo a key, not even part of it
+        remedy=f"check the key you sent; {_CREATE_HINT}",
+    )
+
+
+def _checked(facts: _KeyFacts, digest: str) -> _KeyFacts:
+    """``facts`` when their hash is ``digest`` and the key is not revoked; else the 401."""
+    if not hmac.compare_digest(facts.key_hash, digest):
+        raise _unknown_key()
+    if facts.revoked_at is not None:
         raise AuthenticationError(
-            "the API key is not known to this service",
+            f"API key {facts.prefix}... (id {facts.id}) was revoked at "
+            f"{facts.revoked_at.isoformat()}",
             field="Authorization",
-            value=None,  # never echo a key, not even part of it
-            remedy=f"check the key you sent; {_CREATE_HINT}",
-        )
-    if row.revoked_at is not None:
-        raise AuthenticationError(
-            f"API key {row.prefix}... (id {row.id}) was revoked at {row.revoked_at.isoformat()}",
-            field="Authorization",
-            value=row.prefix,
+            value=facts.prefix,
             remedy=f"use a current key; {_CREATE_HINT}",
         )
+    return facts
+
+
+def _known_key(session: Session, settings: Settings, key: str, cache: KeyCache) -> ApiKey:
+    digest = hash_key(key, settings)
+    row = find_key_by_hash(session=session, key_hash=digest, active_only=False)
+    if row is None:
+        raise _unknown_key()
+    cache.put(row)
+    _checked(
+        _KeyFacts(row.id, row.name, row.role, row.prefix, row.key_hash, row.revoked_at), digest
+    )
     return row
 
 
-def authorize(request: Request, session: Session, role: str) -> Principal:
-    """The caller of ``request`` if it holds ``role`` or a higher one.
-
-    Raises :class:`AuthenticationError` (401) for a missing, unknown or revoked key and
-    :class:`PermissionDeniedError` (403) naming the role needed. With ``auth_required`` off,
-    every caller is an anonymous admin. Either way the session's writes are audited.
-    """
-    known: Principal | None = getattr(request.state, "riskfit_principal", None)
-    if known is None:
-        known = _principal(request, session)
-        request.state.riskfit_principal = known
+def _rank_check(request: Request, known: Principal, role: str) -> Principal:
     if ROLE_RANK[known.role] < ROLE_RANK[role]:
         raise PermissionDeniedError(
             f"{request.method} {request.url.path} needs the role {role!r} or higher; "
@@ -207,12 +301,22 @@ def authorize(request: Request, session: Session, role: str) -> Principal:
     return known
 
 
-def _principal(request: Request, session: Session) -> Principal:
-    """The caller from the presented key (401 when missing, unknown or revoked)."""
-    settings: Settings = request.app.state.settings
-    if not settings.auth_required:
-        install_audit(session, key_id=None)
-        return ANONYMOUS
+def authorize(request: Request, session: Session, role: str) -> Principal:
+    """The caller of ``request`` if it holds ``role`` or a higher one.
+
+    Raises :class:`AuthenticationError` (401) for a missing, unknown or revoked key and
+    :class:`PermissionDeniedError` (403) naming the role needed. With ``auth_required`` off,
+    every caller is an anonymous admin. Either way the session's writes are audited.
+    May read the store: call it from a worker thread (see :func:`authenticate_first`).
+    """
+    known: Principal | None = getattr(request.state, "riskfit_principal", None)
+    if known is None:
+        known = _quick_principal(request, session) or _principal(request, session)
+        request.state.riskfit_principal = known
+    return _rank_check(request, known, role)
+
+
+def _required_key(request: Request) -> str:
     key = presented_key(request)
     if key is None:
         raise AuthenticationError(
@@ -221,7 +325,28 @@ def _principal(request: Request, session: Session) -> Principal:
             value=None,
             remedy=f"send Authorization: Bearer <key> (or X-API-Key: <key>); {_CREATE_HINT}",
         )
-    row = _known_key(session, settings, key)
+    return key
+
+
+def _quick_principal(request: Request, session: Session) -> Principal | None:
+    """The caller without I/O (auth off, or a fresh cache entry for its key), else None."""
+    settings: Settings = request.app.state.settings
+    if not settings.auth_required:
+        install_audit(session, key_id=None)
+        return ANONYMOUS
+    digest = hash_key(_required_key(request), settings)
+    facts = _cache_of(request.app).get(digest)
+    if facts is None:
+        return None
+    _checked(facts, digest)
+    install_audit(session, key_id=facts.id)
+    return Principal(role=facts.role, key_id=facts.id, name=facts.name)  # type: ignore[arg-type]
+
+
+def _principal(request: Request, session: Session) -> Principal:
+    """The caller from the presented key read from the store (401: missing/unknown/revoked)."""
+    settings: Settings = request.app.state.settings
+    row = _known_key(session, settings, _required_key(request), _cache_of(request.app))
     if touch_key(session=session, key=row):
         session.commit()  # last_used_at, at most once a minute per key
     install_audit(session, key_id=row.id)
@@ -238,15 +363,22 @@ def _route_role(route: Any) -> str | None:
     return None
 
 
-def authenticate_first(request: Request, session: SessionDep) -> None:
+async def authenticate_first(request: Request, session: SessionDep) -> None:
     """Router-level dependency: check the key before anything else the route depends on.
 
     Without it a route's path lookups (``ModelDep``) could answer 404 to a caller without a
-    key, telling strangers which models exist. Routes with no role gate stay open.
+    key, telling strangers which models exist. Routes with no role gate stay open. Runs on
+    the event loop: no thread hop with auth off or a fresh cached key, one for a store read.
     """
     role = _route_role(request.scope.get("route"))
-    if role is not None:
-        authorize(request, session, role)
+    if role is None:
+        return
+    if getattr(request.state, "riskfit_principal", None) is None:
+        known = _quick_principal(request, session)
+        if known is None:
+            known = await run_in_threadpool(_principal, request, session)
+        request.state.riskfit_principal = known
+    authorize(request, session, role)  # the caller is known: a rank comparison only
 
 
 # --- audit hook ---------------------------------------------------------------------------
