@@ -1,11 +1,13 @@
 """Group commit for the score log: many small scoring requests, one transaction, one fsync.
 
-A request hands its rows to :meth:`ScoreLogWriter.write`, which blocks until they are
-committed (or raises the request's own error). One writer thread takes every request waiting
-at that moment, inserts each in a SAVEPOINT of one transaction and commits once, then wakes
-the requests. No request returns before its rows are durable, exactly as with its own commit;
-what is shared is the fsync and the write lock. Batches form by themselves: while one commit
-is in progress the next requests queue up, so there is no timer to tune.
+A request hands its rows to :meth:`ScoreLogWriter.write`, which blocks until they are committed
+(or raises the request's own error), or to :meth:`ScoreLogWriter.submit`, whose future an event
+loop can await (``asyncio.wrap_future``) without holding a thread. One writer thread takes
+every request waiting at that moment, inserts each in a SAVEPOINT of one transaction and
+commits once, then wakes the requests. No request returns before its rows are durable, exactly
+as with its own commit; what is shared is the fsync and the write lock. Batches form by
+themselves: while one commit is in progress the next requests queue up, so there is no timer to
+tune.
 
 A request refused on its own account (a :class:`~service.errors.RiskfitError`, e.g. a key
 already used) rolls back only its SAVEPOINT and gets that error; any other failure rolls back
@@ -87,11 +89,15 @@ class ScoreLogWriter:
         self._thread.start()
         self.groups = 0  # commits made (for tests and metrics)
 
-    def write(self, rows: ScoreRows) -> None:
-        """Queue ``rows`` and wait until they are committed; raises the request's error."""
+    def submit(self, rows: ScoreRows) -> Future[None]:
+        """Queue ``rows``; the future is done once they are committed (or holds the error)."""
         done: Future[None] = Future()
         self._queue.put((rows, done))
-        done.result()
+        return done
+
+    def write(self, rows: ScoreRows) -> None:
+        """Queue ``rows`` and wait until they are committed; raises the request's error."""
+        self.submit(rows).result()
 
     def close(self) -> None:
         """Finish the queued groups and stop the thread."""

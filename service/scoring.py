@@ -46,9 +46,12 @@ __all__ = [
     "CI_METHOD",
     "LoadedVersion",
     "ScoreInput",
+    "ScoredBatch",
     "VersionCache",
     "columns_input",
+    "log_batch",
     "new_score_ids",
+    "prepare_batch",
     "records_input",
     "score_batch",
     "score_records",
@@ -309,7 +312,15 @@ def _warnings(
 _ITEM_KEYS = ("score_id", "key", "probability", "ci_lower", "ci_upper", "eta", "se_eta", "warnings")
 
 
-def score_batch(
+@dataclass(frozen=True)
+class ScoredBatch:
+    """A batch scored but not yet logged: ``rows`` to commit, then ``answer()`` to build."""
+
+    rows: ScoreRows
+    answer: Callable[[], dict[str, Any]]
+
+
+def prepare_batch(
     *,
     session: Session,
     model: RiskModel,
@@ -318,13 +329,10 @@ def score_batch(
     confidence_level: float,
     explain: bool,
     cache: VersionCache,
-    writer: ScoreLogWriter | None = None,
-) -> dict[str, Any]:
-    """Score, log and describe a batch; ``data(v)`` gives the raw columns version ``v`` needs.
+) -> ScoredBatch:
+    """Score a batch (``data(v)`` gives the raw columns version ``v`` needs); nothing stored.
 
-    With a ``writer``, batches of up to :data:`GROUP_COMMIT_MAX_ROWS` rows are committed by
-    its group commit (still before this returns); bigger ones commit in ``session``.
-    Returns the JSON-ready answer body (numbers as Python floats, one dict per record).
+    The caller commits ``rows`` and only then calls ``answer()`` (the JSON-ready body).
     """
     number = resolve_version(session, model, version)
     v = cache.get(session, model, number)
@@ -342,32 +350,74 @@ def score_batch(
     created_at = datetime.now(UTC)
     eta, se, p = pred.eta.tolist(), pred.se_eta.tolist(), pred.probability.tolist()
     rows = ScoreRows(model, number, ids, batch.keys, _inputs_json(batch, v), eta, se, p, created_at)
-    if writer is not None and n <= GROUP_COMMIT_MAX_ROWS:
+
+    def answer() -> dict[str, Any]:
+        warnings = _warnings(n, design.extrapolated, cols, v)
+        keys = batch.keys if batch.keys is not None else [None] * n
+        lo, hi = pred.ci_lower.tolist(), pred.ci_upper.tolist()
+        scores = [
+            dict(zip(_ITEM_KEYS, t, strict=True))
+            for t in zip(ids, keys, p, lo, hi, eta, se, warnings, strict=True)
+        ]
+        if explain:
+            contrib = contributions(design.X, v.coef).tolist()
+            for item, row in zip(scores, contrib, strict=True):
+                item["contributions"] = dict(zip(v.term_names, row, strict=True))
+        return {
+            "model": model.name,
+            "version": number,
+            "confidence_level": confidence_level,
+            "ci_method": CI_METHOD,
+            "n_records": n,
+            "created_at": created_at,
+            "scores": scores,
+        }
+
+    return ScoredBatch(rows, answer)
+
+
+def score_batch(
+    *,
+    session: Session,
+    model: RiskModel,
+    data: Callable[[LoadedVersion], ScoreInput],
+    version: int | None,
+    confidence_level: float,
+    explain: bool,
+    cache: VersionCache,
+    writer: ScoreLogWriter | None = None,
+) -> dict[str, Any]:
+    """Score, log and describe a batch (:func:`prepare_batch`, then the commit, then the answer).
+
+    With a ``writer``, batches of up to :data:`GROUP_COMMIT_MAX_ROWS` rows are committed by
+    its group commit (still before this returns); bigger ones commit in ``session``.
+    Returns the JSON-ready answer body (numbers as Python floats, one dict per record).
+    """
+    scored = prepare_batch(
+        session=session,
+        model=model,
+        data=data,
+        version=version,
+        confidence_level=confidence_level,
+        explain=explain,
+        cache=cache,
+    )
+    log_batch(session, scored.rows, writer)
+    return scored.answer()
+
+
+def log_batch(session: Session, rows: ScoreRows, writer: ScoreLogWriter | None) -> None:
+    """Commit ``rows`` to the score log; returns once they are durable.
+
+    Up to :data:`GROUP_COMMIT_MAX_ROWS` rows go through ``writer``'s group commit (when given),
+    bigger batches are inserted and committed in ``session``.
+    """
+    if writer is not None and len(rows.ids) <= GROUP_COMMIT_MAX_ROWS:
         session.commit()  # ends this request's read transaction
         writer.write(rows)  # returns once the rows are committed (group commit)
     else:
         rows.insert(session)
         session.commit()  # durable before the answer exists
-    warnings = _warnings(n, design.extrapolated, cols, v)
-    keys = batch.keys if batch.keys is not None else [None] * n
-    lo, hi = pred.ci_lower.tolist(), pred.ci_upper.tolist()
-    scores = [
-        dict(zip(_ITEM_KEYS, t, strict=True))
-        for t in zip(ids, keys, p, lo, hi, eta, se, warnings, strict=True)
-    ]
-    if explain:
-        contrib = contributions(design.X, v.coef).tolist()
-        for item, row in zip(scores, contrib, strict=True):
-            item["contributions"] = dict(zip(v.term_names, row, strict=True))
-    return {
-        "model": model.name,
-        "version": number,
-        "confidence_level": confidence_level,
-        "ci_method": CI_METHOD,
-        "n_records": n,
-        "created_at": created_at,
-        "scores": scores,
-    }
 
 
 def scoring_model(*, session: Session, name: str) -> tuple[RiskModel, int | None]:
