@@ -54,11 +54,14 @@ __all__ = [
     "data_fingerprint",
     "fingerprint_columns",
     "finite",
+    "fit_statistics_dict",
     "fit_summary",
     "fit_version",
     "needed_columns",
+    "reference_distributions_and_ranges",
     "require_converged",
     "store_version",
+    "term_table_dict",
 ]
 
 FIRST_VERSION_REASON = "first version"
@@ -165,7 +168,7 @@ def _text_bytes(values: np.ndarray | CodedLabels) -> bytes:
     return b"".join(map(pieces.__getitem__, values.codes.tolist()))
 
 
-def _references(
+def reference_distributions_and_ranges(
     spec: VersionSpec,
     columns: Mapping[str, np.ndarray],
     coded: Mapping[str, CodedLabels] | None = None,
@@ -196,7 +199,7 @@ def _references(
     return refs, ranges
 
 
-def _fit_statistics(
+def fit_statistics_dict(
     fit: LogisticFit, y: np.ndarray, p: np.ndarray, weights: np.ndarray | None
 ) -> dict[str, Any]:
     stats = fit_summary(fit)
@@ -235,7 +238,7 @@ def fit_summary(fit: LogisticFit) -> dict[str, Any]:
     return stats
 
 
-def _table_dict(table: Any, fit: LogisticFit) -> dict[str, Any]:
+def term_table_dict(table: Any, fit: LogisticFit) -> dict[str, Any]:
     fields = (
         "estimate",
         "std_error",
@@ -326,13 +329,13 @@ def fit_version(
     drops = drop_term_tests(blocks, fit, groups)
     eta = X @ fit.coef + (data.offset if data.offset is not None else 0.0)
     p = 1.0 / (1.0 + np.exp(-eta))
-    fit_stats = _fit_statistics(fit, data.y, p, data.weights)
+    fit_stats = fit_statistics_dict(fit, data.y, p, data.weights)
     fit_stats["drop_term_tests"] = [
         {"name": d.name, "statistic": finite(d.statistic), "df": d.df, "p_value": finite(d.p_value)}
         for d in drops
     ]
     fit_stats["fit_seconds"] = time.perf_counter() - started
-    refs, ranges = _references(spec, data.columns, data.coded)
+    refs, ranges = reference_distributions_and_ranges(spec, data.columns, data.coded)
     fingerprint = data_fingerprint(data, spec.outcome, options.weights, options.offset)
 
     return store_version(
@@ -341,7 +344,7 @@ def fit_version(
         spec=spec,
         encoding=encoding,
         fit=fit,
-        table=_table_dict(table, fit),
+        table=term_table_dict(table, fit),
         fit_stats=fit_stats,
         references=refs,
         ranges=ranges,

@@ -25,7 +25,7 @@ from typing import Any
 import numpy as np
 from scipy.special import expit
 
-from service.fitting import _fit_statistics, _table_dict, finite
+from service.fitting import finite, fit_statistics_dict, term_table_dict
 from service.scoring import LoadedVersion
 from service.stats.blocks import array_blocks
 from service.stats.fit import LogisticFit, fit_logistic
@@ -113,7 +113,7 @@ def fit_challenger(
             for t in tests
         ]
     prob = expit(X @ coef)
-    stats = _fit_statistics(full, y, prob, None)
+    stats = fit_statistics_dict(full, y, prob, None)
     stats["global_lr_test"] = (
         None
         if lr is None or not np.isfinite(lr.p_value)
@@ -127,5 +127,5 @@ def fit_challenger(
     stats["drop_term_tests"] = drops
     k = {"intercept": 1, "recalibrate": 2}.get(method, p)
     stats["update"] = {"method": method, "intercept": a, "slope": b, "n_parameters": k}
-    table = _table_dict(term_table(full, confidence_level), full)
+    table = term_table_dict(term_table(full, confidence_level), full)
     return Challenger(method, coef, cov, a, b, full, stats, table)

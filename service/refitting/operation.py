@@ -34,7 +34,7 @@ from models_store.orm import ModelVersion, RiskModel
 from models_store.refits import find_refit_run, finish_refit_run, refit_lock, start_refit_run
 from models_store.versions import add_version, require_version
 from service.errors import InvalidInputError, RiskfitError, SpecError
-from service.fitting import _references
+from service.fitting import reference_distributions_and_ranges
 from service.refitting.data import RefitData, load_refit_data, require_counts
 from service.refitting.decide import Decision, decide, gate_config
 from service.schemas import VersionSpec
@@ -132,7 +132,8 @@ def _store_version(
     ranges, refs = parent.training_ranges, parent.reference_distributions
     if c.method == "refit":  # the feature effects now come from the new data
         spec = {k: x for k, x in parent.spec.items() if k in VersionSpec.model_fields}
-        refs, ranges = _references(VersionSpec.model_validate(spec), dev.columns)
+        parent_spec = VersionSpec.model_validate(spec)
+        refs, ranges = reference_distributions_and_ranges(parent_spec, dev.columns)
     return add_version(
         session=session,
         model=model,

@@ -23,13 +23,13 @@ from models_store.orm import ModelVersion, RiskModel
 from service.config import Settings
 from service.errors import PermissionDeniedError, SpecError
 from service.fitting import (
-    _table_dict,
     check_spec,
     fingerprint_columns,
     finite,
     fit_summary,
     require_converged,
     store_version,
+    term_table_dict,
 )
 from service.schemas import VersionSpec
 from service.stats.blocks import BlockSource
@@ -192,7 +192,7 @@ def fit_version_from_path(
         spec=spec,
         encoding=enc,
         fit=fit,
-        table=_table_dict(terms, fit),
+        table=term_table_dict(terms, fit),
         fit_stats=stats,
         references=se.references,
         ranges=se.ranges,

@@ -16,7 +16,7 @@ import pytest
 import statsmodels.api as sm
 
 from service.errors import DataError, MissingFeatureError
-from service.fitting import _references
+from service.fitting import reference_distributions_and_ranges
 from service.schemas import VersionSpec
 from service.sources.blocks import file_blocks
 from service.sources.encoding import learn_streamed
@@ -43,7 +43,7 @@ def test_encoding_references_ranges_identical(
     data = in_memory(table, FEATURES, None, None)
     enc, _, _ = fit_in_memory(data, FEATURES)
     assert se.encoding.to_dict() == enc.to_dict()  # levels, knots, ranges: exactly equal
-    refs, ranges = _references(VersionSpec(features=FEATURES), data.columns)
+    refs, ranges = reference_distributions_and_ranges(VersionSpec(features=FEATURES), data.columns)
     assert se.references == refs
     assert se.ranges == ranges
     assert se.n_obs == table.num_rows
