@@ -98,6 +98,8 @@ class RiskModel(Base):
     name: Mapped[str] = mapped_column(String(NAME_LEN), unique=True)
     description: Mapped[str] = mapped_column(Text, default="")
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    # Per-model alert-threshold overrides (service.monitoring.thresholds); {} = the defaults.
+    alert_thresholds: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
 
 
 class ApiKey(Base):

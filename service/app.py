@@ -37,6 +37,7 @@ ROUTERS: list[str] = [
     "service.api.scores",
     "service.api.outcomes",
     "service.api.monitoring",
+    "service.api.alert_thresholds",
     "service.api.dashboard",
     "service.api.refits",
     "service.api.keys",

@@ -35,6 +35,7 @@ from service.api.monitoring import alerts_public, evaluate_drift, outcome_snapsh
 from service.dashboard import STATIC_DIR, index_page, model_page, sign_in_page
 from service.errors import RiskfitError
 from service.monitoring import Window, calibration_view
+from service.monitoring.thresholds import for_model
 from service.security import authorize
 
 __all__ = ["JSON_ERRORS", "router"]
@@ -180,7 +181,7 @@ def dashboard_model(
         report=report,
         drift=drift,
         alerts=alerts_public(session, row, settings, open_only=False, limit=200),
-        thresholds=thresholds(settings),
+        thresholds=thresholds(for_model(settings, row)),
         signed_in_as=_who(who, request),
     )
     return HTMLResponse(page)

@@ -30,6 +30,7 @@ from service.monitoring import (
     calibration_view,
     drift_view,
 )
+from service.monitoring.thresholds import for_model
 from service.plots import PlotFormat, drift_figure, psi_figure, reliability_figure, render
 from service.schemas.monitoring import AlertList, CalibrationReportPublic, DriftPublic
 
@@ -267,7 +268,11 @@ def get_drift_plot(
     size: Size = None,
 ) -> Response:
     body = evaluate_drift(request, session, model, window, by, size, settings, None)
-    fig = drift_figure(body, thresholds(settings)) if plot == "measures" else psi_figure(body)
+    fig = (
+        drift_figure(body, thresholds(for_model(settings, model)))
+        if plot == "measures"
+        else psi_figure(body)
+    )
     return Response(render(fig, fmt), media_type=MEDIA[fmt])
 
 
@@ -283,7 +288,7 @@ def alerts_public(
         "count": len(items),
         "open": sum(1 for a in items if a["open"]),
         "items": items,
-        "thresholds": thresholds(settings),
+        "thresholds": thresholds(for_model(settings, model)),
     }
 
 

@@ -26,6 +26,7 @@ from service.monitoring.cusum_monitor import LimitCache, cusum_segment, cusum_vi
 from service.monitoring.input_drift import input_drift
 from service.monitoring.report import Window, counts, fetch_window
 from service.monitoring.snapshot import OutcomeSnapshots
+from service.monitoring.thresholds import for_model
 from service.monitoring.windows import WindowBy, drift_windows
 
 __all__ = ["drift_view"]
@@ -114,7 +115,7 @@ def drift_view(
             max_records=settings.psi_max_records,
         ),
     }
-    found = conditions(body, settings)
+    found = conditions(body, for_model(settings, model))
     new = store_new_alerts(session=session, model=model, found=found)
     session.commit()
     body["alerts"] = {

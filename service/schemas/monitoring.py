@@ -11,6 +11,8 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, Field
 
+from service.schemas.common import StrictModel
+
 __all__ = [
     "AlertList",
     "AlertPublic",
@@ -90,3 +92,28 @@ class DriftPublic(BaseModel):
     cusum: dict[str, Any] = Field(description="Two-sided risk-adjusted Bernoulli CUSUM.")
     input_drift: dict[str, Any] = Field(description="PSI per feature against the reference.")
     alerts: dict[str, Any] = Field(description="Conditions found and alerts stored now.")
+
+
+class AlertThresholdsUpdate(StrictModel):
+    """Per-model alert thresholds; a name left out uses the service default (settings)."""
+
+    citl_tolerance: float | None = Field(
+        None,
+        gt=0.0,
+        le=10.0,
+        description="Calibration-in-the-large CI beyond ±this.",
+    )
+    slope_low: float | None = Field(None, gt=0.0, lt=10.0, description="Slope CI below this.")
+    slope_high: float | None = Field(None, gt=0.0, le=10.0, description="Slope CI above this.")
+    oe_low: float | None = Field(None, gt=0.0, lt=100.0, description="O/E CI below this.")
+    oe_high: float | None = Field(None, gt=0.0, le=100.0, description="O/E CI above this.")
+    psi: float | None = Field(None, gt=0.0, le=100.0, description="A feature's PSI reaching this.")
+
+
+class AlertThresholdsPublic(BaseModel):
+    """The thresholds a model's alerts use: effective = defaults with the overrides applied."""
+
+    model: str
+    effective: dict[str, float]
+    overrides: dict[str, float]
+    defaults: dict[str, float]

@@ -40,6 +40,8 @@ LEAST_ROLE: dict[tuple[str, str], str] = {
     ("GET", "/risk-models/{model}/drift"): "scorer",
     ("GET", "/risk-models/{model}/drift/{plot}.{fmt}"): "scorer",
     ("GET", "/risk-models/{model}/alerts"): "scorer",
+    ("GET", "/risk-models/{model}/alert-thresholds"): "scorer",
+    ("PUT", "/risk-models/{model}/alert-thresholds"): "modeler",
     ("GET", "/dashboard"): "scorer",
     ("GET", "/dashboard/{model}"): "scorer",
     ("POST", "/risk-models/{model}/refits"): "modeler",

@@ -44,6 +44,7 @@ def upgrade() -> None:
         sa.Column("name", sa.String(length=200), nullable=False),
         sa.Column("description", sa.Text(), nullable=False),
         sa.Column("created_at", UTC_TIMESTAMP, nullable=False),
+        sa.Column("alert_thresholds", sa.JSON(), nullable=False),
         sa.PrimaryKeyConstraint("id", name=op.f("pk_risk_model")),
         sa.UniqueConstraint("name", name=op.f("uq_risk_model_name")),
     )
