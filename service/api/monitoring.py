@@ -30,6 +30,7 @@ from service.monitoring import (
     calibration_view,
     drift_view,
 )
+from service.monitoring.thresholds import THRESHOLD_FIELDS as ALERT_THRESHOLDS
 from service.monitoring.thresholds import for_model
 from service.plots import PlotFormat, drift_figure, psi_figure, reliability_figure, render
 from service.schemas.monitoring import AlertList, CalibrationReportPublic, DriftPublic
@@ -37,13 +38,9 @@ from service.schemas.monitoring import AlertList, CalibrationReportPublic, Drift
 router = APIRouter(prefix="/risk-models/{model}", tags=["monitoring"])
 
 MEDIA = {"svg": "image/svg+xml", "png": "image/png"}
+# The alert thresholds (per-model overridable) and the fixed monitoring settings beside them.
 THRESHOLD_FIELDS = (
-    "alert_citl_tolerance",
-    "alert_slope_low",
-    "alert_slope_high",
-    "alert_oe_low",
-    "alert_oe_high",
-    "alert_psi",
+    *ALERT_THRESHOLDS,
     "psi_min_records",
     "cusum_target_arl",
     "cusum_odds_ratio_up",
