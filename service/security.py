@@ -51,14 +51,15 @@ from datetime import datetime
 from typing import Any
 
 from fastapi import Request
-from sqlalchemy import event, inspect
+from sqlalchemy import event
 from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 
 from models_store.audit import record
 from models_store.keys import create_key, find_key_by_hash, get_key, revoke_key, touch_key
-from models_store.orm import ApiKey, AuditEvent, ChampionChange, ModelVersion, RefitRun, RiskModel
+from models_store.orm import ApiKey
 from service.api.deps import ANONYMOUS, ROLE_RANK, Principal, SessionDep
+from service.audit_hook import install_audit
 from service.config import Settings
 from service.errors import (
     AuthenticationError,
@@ -86,7 +87,6 @@ __all__ = [
 KEY_PREFIX = "rk_"
 KEY_BYTES = 32
 PREFIX_LEN = 10
-_AUDIT_FLAG = "riskfit_audit_key_id"
 _CREATE_HINT = "an admin creates one with `riskfit keys create --role scorer` or POST /api-keys"
 KEY_CACHE_TTL = 5.0  # seconds a key read from the store is trusted without reading it again
 _KEY_CACHE_MAX = 4096  # entries per app (known keys only); cleared when full
@@ -379,57 +379,6 @@ async def authenticate_first(request: Request, session: SessionDep) -> None:
             known = await run_in_threadpool(_principal, request, session)
         request.state.riskfit_principal = known
     authorize(request, session, role)  # the caller is known: a rank comparison only
-
-
-# --- audit hook ---------------------------------------------------------------------------
-
-
-def install_audit(session: Session, *, key_id: int | None) -> None:
-    """Record version, champion and refit changes made through ``session`` as ``key_id``."""
-    first = _AUDIT_FLAG not in session.info
-    session.info[_AUDIT_FLAG] = key_id
-    if first:
-        event.listen(session, "before_flush", _audit_before_flush)
-
-
-def _model_name(session: Session, model_id: int) -> str | None:
-    with session.no_autoflush:
-        model = session.get(RiskModel, model_id)
-    return None if model is None else model.name
-
-
-def _audit_before_flush(session: Session, _context: Any, _instances: Any) -> None:
-    key_id = session.info.get(_AUDIT_FLAG)
-    events: list[tuple[str, int, dict[str, Any]]] = []
-    for obj in list(session.new):
-        if isinstance(obj, ModelVersion):
-            details = {"number": obj.number, "origin": obj.origin, "method": obj.method}
-            events.append(("version.create", obj.model_id, details))
-        elif isinstance(obj, ChampionChange):
-            details = {
-                "version": obj.version_number,
-                "previous_version": obj.previous_version_number,
-                "reason": obj.reason,
-            }
-            events.append(("champion.change", obj.model_id, details))
-        elif isinstance(obj, RefitRun):
-            events.append(("refit.start", obj.model_id, {"status": obj.status}))
-    for obj in list(session.dirty):
-        if isinstance(obj, RefitRun):
-            history = inspect(obj).attrs.status.history
-            if history.has_changes():
-                details = {"refit_run_id": obj.id, "status": obj.status}
-                events.append(("refit.finish", obj.model_id, details))
-    for action, model_id, details in events:
-        name = _model_name(session, model_id) if model_id is not None else None
-        _add_event(session, action=action, key_id=key_id, model_name=name, details=details)
-
-
-def _add_event(
-    session: Session, *, action: str, key_id: int | None, model_name: str | None, details: Any
-) -> None:
-    """Add an audit row to the flush in progress (``record`` itself flushes, so not here)."""
-    session.add(AuditEvent(action=action, key_id=key_id, model_name=model_name, details=details))
 
 
 def own_key_headers(app: Any, *, role: str = "modeler", name: str = "demo") -> dict[str, str]:
