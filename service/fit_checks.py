@@ -1,0 +1,88 @@
+"""Checks of a fit request that the schema cannot express, and of the fit's outcome.
+
+* :func:`check_spec`: duplicate, reserved and unknown names, options that do not go together;
+* :func:`require_converged`: a fit that stopped early is refused (nothing is stored);
+* :func:`in_request_terms`: engine errors renamed to the request's fields.
+"""
+
+from __future__ import annotations
+
+from service.errors import FitError, NonConvergenceError, SingleClassError, SpecError
+from service.schemas import VersionSpec
+from service.stats.fit import LogisticFit
+
+__all__ = [
+    "RESERVED_NAMES",
+    "check_spec",
+    "in_request_terms",
+    "needed_columns",
+    "require_converged",
+]
+
+RESERVED_NAMES = frozenset({"key"})  # the record field of a client's own score id
+
+
+def needed_columns(spec: VersionSpec) -> list[str]:
+    """Every column the fit reads: features, the outcome, then weights and offset if named."""
+    names = [f.name for f in spec.features] + [spec.outcome]
+    names += [c for c in (spec.options.weights, spec.options.offset) if c]
+    return names
+
+
+def check_spec(spec: VersionSpec) -> None:
+    """Spec consistency the schema cannot express (duplicates, reserved and unknown names)."""
+    seen: set[str] = set()
+    for i, f in enumerate(spec.features):
+        if f.name in RESERVED_NAMES:
+            raise SpecError(
+                f"{f.name!r} is reserved for the client's record key",
+                field=f"features[{i}].name",
+                value=f.name,
+                remedy="rename the column, e.g. to segment_key",
+            )
+        if f.name in seen or f.name == spec.outcome:
+            raise SpecError(
+                f"feature {f.name!r} is named twice (or is also the outcome)",
+                field=f"features[{i}].name",
+                value=f.name,
+                remedy="give every feature one entry and keep the outcome separate",
+            )
+        seen.add(f.name)
+    for j, pair in enumerate(spec.interactions):
+        for name in pair:
+            if name not in seen:
+                raise SpecError(
+                    f"interaction names {name!r}, which is not a feature",
+                    field=f"interactions[{j}]",
+                    value=list(pair),
+                    remedy="list both features of an interaction under features",
+                )
+    if spec.options.method != "ridge" and spec.options.ridge_lambda:
+        raise SpecError(
+            "ridge_lambda is only used with method='ridge'",
+            field="options.ridge_lambda",
+            value=spec.options.ridge_lambda,
+            remedy="set options.method to 'ridge', or drop ridge_lambda",
+        )
+
+
+def require_converged(fit: LogisticFit, method: str) -> None:
+    """:class:`NonConvergenceError` when Newton stopped early (nothing is stored then)."""
+    if not fit.converged:
+        raise NonConvergenceError(
+            f"the fit did not converge after {fit.iterations} iterations: {fit.stop_reason}",
+            field="options.method",
+            value=method,
+            remedy="try options.method='firth' (or 'ridge' with a small ridge_lambda), fewer "
+            "levels or terms, or a larger options.max_iter",
+            details={"iterations": fit.iterations, "stop_reason": fit.stop_reason},
+        )
+
+
+def in_request_terms(exc: FitError, spec: VersionSpec) -> FitError:
+    """Name the request's fields instead of the engine's arrays ``y`` and ``X``."""
+    if isinstance(exc, SingleClassError):
+        exc.field = f"data.{spec.outcome}"
+    elif exc.field == "X" or (exc.field or "").startswith("X["):
+        exc.field = "features"
+    return exc
