@@ -258,6 +258,26 @@ class AlertRecord(Base):
     dedup_key: Mapped[str | None] = mapped_column(String(64))
 
 
+class CusumLimitRecord(Base):
+    """A simulated CUSUM control limit, kept so that a restart or another worker reuses it.
+
+    ``key_digest`` is the hex SHA-256 of ``depends_on``: everything the limit depends on (segment,
+    size class, target ARL, simulation size and seed, odds ratio, method); ``control_limit`` the
+    :class:`service.stats.cusum.ControlLimit` fields. Rows are written once, never updated.
+    """
+
+    __tablename__ = "cusum_limit"
+    __table_args__ = (UniqueConstraint("model_id", "key_digest"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    model_id: Mapped[int] = mapped_column(ForeignKey("risk_model.id"))
+    key_digest: Mapped[str] = mapped_column(String(64))
+    h: Mapped[float] = mapped_column(Float)
+    depends_on: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    control_limit: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
 class AuditEvent(Base):
     """Who (key id) did what (action) to which model, and when."""
 

@@ -242,8 +242,27 @@ def upgrade() -> None:
     op.create_index(op.f("ix_outcome_model_id_observed_at"), "outcome", ["model_id", "observed_at"])
     op.create_index(op.f("ix_outcome_model_id_scored_at"), "outcome", ["model_id", "scored_at"])
 
+    op.create_table(
+        "cusum_limit",
+        sa.Column("id", sa.Integer(), nullable=False),
+        sa.Column("model_id", sa.Integer(), nullable=False),
+        sa.Column("key_digest", sa.String(length=64), nullable=False),
+        sa.Column("h", sa.Float(), nullable=False),
+        sa.Column("depends_on", sa.JSON(), nullable=False),
+        sa.Column("control_limit", sa.JSON(), nullable=False),
+        sa.Column("created_at", UTC_TIMESTAMP, nullable=False),
+        sa.ForeignKeyConstraint(
+            ["model_id"], ["risk_model.id"], name=op.f("fk_cusum_limit_model_id_risk_model")
+        ),
+        sa.PrimaryKeyConstraint("id", name=op.f("pk_cusum_limit")),
+        sa.UniqueConstraint(
+            "model_id", "key_digest", name=op.f("uq_cusum_limit_model_id_key_digest")
+        ),
+    )
+
 
 def downgrade() -> None:
+    op.drop_table("cusum_limit")
     op.drop_index(op.f("ix_outcome_model_id_observed_at"), table_name="outcome")
     op.drop_index(op.f("ix_outcome_model_id_scored_at"), table_name="outcome")
 
