@@ -8,8 +8,10 @@ For coefficients ``coef`` (p,), a block's linear predictor is
     info    = X' diag(w * mu * (1 - mu)) X               (p, p)
 
 (McCullagh & Nelder, *Generalized Linear Models*, 2nd ed., ch. 4). The
-information is accumulated with one BLAS ``dsyrk`` per block on
-``sqrt(w * mu * (1 - mu)) * X`` so that no n x p temporary exceeds one block.
+information is accumulated chunk by chunk (:data:`CHUNK_ROWS` rows) as ``A' A`` with
+``A = sqrt(w * mu * (1 - mu)) * X``, which numpy hands to BLAS ``dsyrk``; no temporary
+is larger than one chunk. Each block's rows are shared by two lanes of partial sums
+(:mod:`service.stats.lanes`), so a pass uses two cores and gives the same sums with one.
 
 :func:`scan` is the first pass: it checks the data (finite values, 0/1 outcomes,
 non-negative weights) and collects the weighted cross-product ``X' diag(w) X``,
@@ -20,18 +22,18 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
-from scipy.linalg.blas import dsyrk
 
 from service.errors import DataError
 
 from .blocks import Block, BlockSource
+from .lanes import LANES, lane_slices, run_lanes
 
-__all__ = ["DataSummary", "Totals", "full_symmetric", "loglik_pass", "scan"]
+__all__ = ["DataSummary", "Totals", "loglik_pass", "scan"]
 
 EXTREME_ETA = 30.0  # |eta| beyond which a fitted probability is 0 or 1 to ~1e-13
-EXTREME_E = float(np.exp(-EXTREME_ETA))
 CHUNK_ROWS = 4096  # rows per fused step: the chunk and its scaled copy stay in the L2 cache
 
 
@@ -59,24 +61,11 @@ class DataSummary:
     xtwy: np.ndarray  # X' (w y) (p,)
 
 
-def full_symmetric(upper: np.ndarray) -> np.ndarray:
-    """Mirror the upper triangle (as written by ``dsyrk``) into a full symmetric matrix."""
-    out = np.triu(upper)
-    out += np.triu(upper, 1).T
-    return out
-
-
-def _scaled_syrk(X: np.ndarray, scale: np.ndarray, acc: np.ndarray) -> np.ndarray:
-    """``acc + (scale * X)' (scale * X)`` in the upper triangle (``scale`` is (m,))."""
-    Xs = X * scale[:, None]
-    return dsyrk(1.0, Xs.T, beta=1.0, c=acc, trans=0, lower=0, overwrite_c=1)  # type: ignore[no-any-return]
-
-
 def _bad_row(mask: np.ndarray) -> int:
     return int(np.flatnonzero(mask.reshape(mask.shape[0], -1).any(axis=1))[0])
 
 
-def _check_block(b: Block, start: int, p: int, term_names: tuple[str, ...]) -> None:
+def _check_shapes(b: Block, p: int) -> None:
     X = b.X
     if X.ndim != 2 or X.shape[1] != p:
         raise DataError(
@@ -94,6 +83,11 @@ def _check_block(b: Block, start: int, p: int, term_names: tuple[str, ...]) -> N
                 value=f"shape {arr.shape}",
                 remedy="give one value per row",
             )
+
+
+def _check_values(b: Block, start: int, term_names: tuple[str, ...]) -> None:
+    """Finite X, 0/1 outcomes, finite weights >= 0 and offsets; ``start``: first row's index."""
+    X = b.X
     if not np.isfinite(X).all():
         bad = ~np.isfinite(X)
         row = _bad_row(bad)
@@ -133,36 +127,13 @@ def _check_block(b: Block, start: int, p: int, term_names: tuple[str, ...]) -> N
         )
 
 
-def scan(blocks: BlockSource, p: int, term_names: tuple[str, ...]) -> DataSummary:
-    """First pass: validate every block and collect counts and weighted cross-products."""
-    xtwx = np.zeros((p, p), order="F")
-    xtw = np.zeros(p)
-    xtwy = np.zeros(p)
-    n_obs = n_pos = 0
-    sum_w = events = 0.0
-    has_offset = False
-    for block in blocks():
-        _check_block(block, n_obs, p, term_names)
-        has_offset = has_offset or block.offset is not None
-        n_obs += block.X.shape[0]
-        for b in _chunks(block):
-            if b.weights is None:
-                n_pos += b.X.shape[0]
-                sum_w += b.X.shape[0]
-                events += float(b.y.sum())
-                xtw += b.X.sum(axis=0)
-                xtwy += b.X.T @ b.y
-                xtwx = dsyrk(1.0, b.X.T, beta=1.0, c=xtwx, trans=0, lower=0, overwrite_c=1)
-            else:
-                w = b.weights
-                n_pos += int(np.count_nonzero(w > 0))
-                sum_w += float(w.sum())
-                wy = w * b.y
-                events += float(wy.sum())
-                xtw += b.X.T @ w
-                xtwy += b.X.T @ wy
-                xtwx = _scaled_syrk(b.X, np.sqrt(w), xtwx)
-    return DataSummary(n_obs, n_pos, sum_w, events, has_offset, full_symmetric(xtwx), xtw, xtwy)
+def _rows(b: Block, sl: slice) -> Block:
+    return Block(
+        b.X[sl],
+        b.y[sl],
+        None if b.weights is None else b.weights[sl],
+        None if b.offset is None else b.offset[sl],
+    )
 
 
 def _chunks(b: Block) -> Iterator[Block]:
@@ -172,13 +143,118 @@ def _chunks(b: Block) -> Iterator[Block]:
         yield b
         return
     for lo in range(0, m, CHUNK_ROWS):
-        sl = slice(lo, lo + CHUNK_ROWS)
-        yield Block(
-            b.X[sl],
-            b.y[sl],
-            None if b.weights is None else b.weights[sl],
-            None if b.offset is None else b.offset[sl],
+        yield _rows(b, slice(lo, lo + CHUNK_ROWS))
+
+
+class _ScanSums:
+    """One lane's share of the first pass."""
+
+    def __init__(self, p: int) -> None:
+        self.xtwx = np.zeros((p, p))
+        self.xtw = np.zeros(p)
+        self.xtwy = np.zeros(p)
+        self.n_pos = 0
+        self.sum_w = 0.0
+        self.events = 0.0
+
+    def add(self, block: Block, start: int, term_names: tuple[str, ...]) -> None:
+        _check_values(block, start, term_names)
+        for b in _chunks(block):
+            if b.weights is None:
+                m = b.X.shape[0]
+                self.n_pos += m
+                self.sum_w += m
+                self.events += float(b.y.sum())
+                self.xtw += b.X.sum(axis=0)
+                self.xtwy += b.X.T @ b.y
+                self.xtwx += b.X.T @ b.X  # numpy computes A'A with dsyrk
+            else:
+                w = b.weights
+                self.n_pos += int(np.count_nonzero(w > 0))
+                self.sum_w += float(w.sum())
+                wy = w * b.y
+                self.events += float(wy.sum())
+                self.xtw += b.X.T @ w
+                self.xtwy += b.X.T @ wy
+                Xs = b.X * np.sqrt(w)[:, None]
+                self.xtwx += Xs.T @ Xs
+
+
+def scan(blocks: BlockSource, p: int, term_names: tuple[str, ...]) -> DataSummary:
+    """First pass: validate every block and collect counts and weighted cross-products."""
+    lanes = [_ScanSums(p) for _ in range(LANES)]
+    n_obs = 0
+    has_offset = False
+    for block in blocks():
+        _check_shapes(block, p)
+        has_offset = has_offset or block.offset is not None
+        parts = lane_slices(block.X.shape[0], CHUNK_ROWS)
+        run_lanes(
+            [
+                partial(lanes[k].add, _rows(block, sl), n_obs + sl.start, term_names)
+                for k, sl in enumerate(parts)
+            ]
         )
+        n_obs += block.X.shape[0]
+    a, b = lanes
+    return DataSummary(
+        n_obs,
+        a.n_pos + b.n_pos,
+        a.sum_w + b.sum_w,
+        a.events + b.events,
+        has_offset,
+        a.xtwx + b.xtwx,
+        a.xtw + b.xtw,
+        a.xtwy + b.xtwy,
+    )
+
+
+class _PassSums:
+    """One lane's share of a fused pass, with its own scratch buffer for ``sqrt(W) X``."""
+
+    def __init__(self, p: int, want_info: bool) -> None:
+        self.loglik = 0.0
+        self.score = np.zeros(p)
+        self.info = np.zeros((p, p))
+        self.n_extreme = 0
+        self.want_info = want_info
+        self.buf = np.empty((CHUNK_ROWS, p)) if want_info else np.empty((0, p))
+
+    def add(self, block: Block, coef: np.ndarray) -> None:
+        for b in _chunks(block):
+            self._chunk(b, coef)
+
+    def _chunk(self, b: Block, coef: np.ndarray) -> None:
+        X, y, w = b.X, b.y, b.weights
+        eta = X @ coef
+        if b.offset is not None:
+            eta += b.offset
+        a = np.abs(eta)
+        e = np.exp(np.negative(a))
+        d = 1.0 + e
+        mu = np.where(eta >= 0, 1.0, e)
+        mu /= d
+        resid = y - mu
+        # y eta - log(1 + exp(eta)) = (y eta - max(eta, 0)) - log1p(e); both parts <= 0
+        lp = y * eta
+        lp -= np.maximum(eta, 0.0)
+        lp -= np.log1p(e)
+        if w is None:
+            self.loglik += float(lp.sum())
+        else:
+            self.loglik += float(w @ lp)
+            resid *= w
+        self.score += X.T @ resid
+        self.n_extreme += int(np.count_nonzero(a > EXTREME_ETA))
+        if self.want_info:
+            sw = np.sqrt(e)
+            sw /= d
+            if w is not None:
+                sw *= np.sqrt(w)
+            m = X.shape[0]
+            out = None if m > CHUNK_ROWS else self.buf[:m]
+            Xs = np.multiply(X, sw[:, None], out=out)
+            self.info += Xs.T @ Xs  # numpy computes A'A with dsyrk
 
 
 def loglik_pass(blocks: BlockSource, coef: np.ndarray, *, want_info: bool = True) -> Totals:
@@ -186,39 +262,15 @@ def loglik_pass(blocks: BlockSource, coef: np.ndarray, *, want_info: bool = True
 
     With ``e = exp(-|eta|)``: ``mu = (1 if eta >= 0 else e) / (1 + e)``,
     ``log(1 + exp(eta)) = max(eta, 0) + log1p(e)`` and ``mu (1 - mu) = e / (1 + e)^2``,
-    one exponential per row and accurate in both tails.
+    one exponential per row and accurate in both tails. Two lanes of partial sums
+    (:mod:`service.stats.lanes`) share the rows of each block.
     """
     p = coef.shape[0]
-    info = np.zeros((p, p), order="F")
-    score = np.zeros(p)
-    loglik = 0.0
-    n_extreme = 0
-    buf = np.empty((CHUNK_ROWS, p))
+    lanes = [_PassSums(p, want_info) for _ in range(LANES)]
     for block in blocks():
-        for b in _chunks(block):
-            eta = b.X @ coef
-            if b.offset is not None:
-                eta += b.offset
-            e = np.exp(-np.abs(eta))
-            d = 1.0 + e
-            mu = np.where(eta >= 0, 1.0, e) / d
-            lp = b.y * eta - np.maximum(eta, 0.0) - np.log1p(e)
-            resid = b.y - mu
-            if b.weights is not None:
-                lp *= b.weights
-                resid *= b.weights
-            loglik += float(lp.sum())
-            score += b.X.T @ resid
-            n_extreme += int(np.count_nonzero(e < EXTREME_E))
-            if want_info:
-                sw = np.sqrt(e) / d
-                if b.weights is not None:
-                    sw *= np.sqrt(b.weights)
-                m = b.X.shape[0]
-                Xs = (
-                    b.X * sw[:, None]
-                    if m > CHUNK_ROWS
-                    else np.multiply(b.X, sw[:, None], out=buf[:m])
-                )
-                info = dsyrk(1.0, Xs.T, beta=1.0, c=info, trans=0, lower=0, overwrite_c=1)
-    return Totals(loglik, score, full_symmetric(info) if want_info else info, n_extreme)
+        parts = lane_slices(block.X.shape[0], CHUNK_ROWS)
+        run_lanes([partial(lanes[k].add, _rows(block, sl), coef) for k, sl in enumerate(parts)])
+    a, b = lanes
+    return Totals(
+        a.loglik + b.loglik, a.score + b.score, a.info + b.info, a.n_extreme + b.n_extreme
+    )
