@@ -37,6 +37,7 @@ from service.stats.columns import CodedLabels
 from service.stats.design import design_matrix, learn_encoding
 from service.stats.fit import fit_logistic
 from service.stats.inference import drop_term_tests, profile_intervals, term_table
+from service.step_times import StepTimes
 from service.version_store import FIRST_VERSION_REASON, store_version
 
 __all__ = [
@@ -64,21 +65,25 @@ def fit_version(
     data: TrainingData,
     confidence_level: float,
     key_id: int | None = None,
+    times: StepTimes | None = None,
 ) -> tuple[RiskModel, ModelVersion, bool]:
     """Fit, check and store a new version; returns ``(model, version, is_champion)``.
 
     Raises the engine's :class:`~service.errors.FitError` subclasses (separation, single
     class, rank deficiency, too few observations), :class:`NonConvergenceError` when Newton
     stopped early, :class:`SpecError`/:class:`DataError` for bad spec or data. The session is
-    committed only after every step succeeded.
+    committed only after every step succeeded. ``times``, if given, gets a lap per step
+    (``encode``, ``fit``, ``inference``, ``summaries``, ``store``; :mod:`service.step_times`).
     """
     started = time.perf_counter()
+    times = times if times is not None else StepTimes()
     check_spec(spec)
     options = spec.options
     features = [f.model_dump(exclude_none=True) for f in spec.features]
     columns: dict[str, np.ndarray | CodedLabels] = {**data.columns, **data.coded}  # codes if known
     encoding = learn_encoding(features, columns, interactions=spec.interactions)
     X = design_matrix(encoding, columns).X
+    times.lap("encode")
     try:
         fit = fit_logistic(
             X,
@@ -93,6 +98,7 @@ def fit_version(
     except FitError as exc:
         raise in_request_terms(exc, spec) from exc.__cause__
     require_converged(fit, options.method)
+    times.lap("fit")
     blocks = array_blocks(X, data.y, data.weights, data.offset)
     if options.profile_intervals:
         table = profile_intervals(blocks, fit, confidence_level)
@@ -100,6 +106,7 @@ def fit_version(
         table = term_table(fit, confidence_level)
     groups = {k: v for k, v in encoding.term_groups.items() if k != "intercept"}
     drops = drop_term_tests(blocks, fit, groups)
+    times.lap("inference")
     eta = X @ fit.coef + (data.offset if data.offset is not None else 0.0)
     p = 1.0 / (1.0 + np.exp(-eta))
     fit_stats = fit_statistics_dict(fit, data.y, p, data.weights)
@@ -107,8 +114,8 @@ def fit_version(
     fit_stats["fit_seconds"] = time.perf_counter() - started
     refs, ranges = reference_distributions_and_ranges(spec, data.columns, data.coded)
     fingerprint = data_fingerprint(data, spec.outcome, options.weights, options.offset)
-
-    return store_version(
+    times.lap("summaries")
+    stored = store_version(
         session=session,
         model_name=model_name,
         spec=spec,
@@ -122,3 +129,5 @@ def fit_version(
         confidence_level=confidence_level,
         key_id=key_id,
     )
+    times.lap("store")
+    return stored

@@ -3,13 +3,17 @@
 The fit accepts ``application/json`` (:class:`~service.schemas.VersionCreate`) or
 ``multipart/form-data`` with a JSON part ``spec`` (:class:`~service.schemas.VersionSpec`) and
 a file part ``data`` (CSV with a header row, or Parquet).
+
+A successful fit answers with a ``Server-Timing`` header (W3C Server Timing: milliseconds per
+step, ``read, validate, encode, fit, inference, summaries, store, answer``; see
+:mod:`service.step_times`), for profiling from the client side; it is not part of the schema.
 """
 
 from __future__ import annotations
 
 from typing import Any
 
-from fastapi import APIRouter, Path, Request, status
+from fastapi import APIRouter, Path, Request, Response, status
 from fastapi.exceptions import RequestValidationError
 from pydantic import ValidationError
 from starlette.concurrency import run_in_threadpool
@@ -33,6 +37,7 @@ from service.fitting import fit_version, needed_columns
 from service.limits import check_training_data
 from service.schemas import ErrorResponse, VersionCreate, VersionList, VersionPublic, VersionSpec
 from service.schemas.versions import _EXAMPLE_SPEC
+from service.step_times import StepTimes
 
 router = APIRouter(prefix="/risk-models/{model}/versions", tags=["versions"])
 
@@ -140,11 +145,14 @@ async def _parse_fit_request(request: Request) -> tuple[VersionSpec, dict[str, A
 async def post_version(
     model: ModelName,
     request: Request,
+    response: Response,
     session: SessionDep,
     settings: SettingsDep,
     who: ModelerAccess,
 ) -> dict[str, Any]:
+    times = StepTimes()
     spec, raw, layout = await _parse_fit_request(request)
+    times.lap("read")
     options = spec.options
     kinds = {f.name: f.kind for f in spec.features}
 
@@ -160,6 +168,7 @@ async def post_version(
             layout=layout,
         )
         check_training_data(settings, kinds, data.columns, data.n_obs)
+        times.lap("validate")
         level = options.confidence_level or settings.default_confidence_level
         m, v, _ = fit_version(
             session=session,
@@ -168,10 +177,14 @@ async def post_version(
             data=data,
             confidence_level=level,
             key_id=who.key_id,
+            times=times,
         )
-        return version_public(m, v, current_champion(session=session, model=m))
+        public = version_public(m, v, current_champion(session=session, model=m))
+        times.lap("answer")
+        return public
 
     answer = await run_in_threadpool(work)
+    response.headers["Server-Timing"] = times.header()
     metrics = request.app.state.metrics
     metrics.versions_fitted.labels(model, options.method).inc()
     metrics.fit_seconds.observe(answer["fit_statistics"].get("fit_seconds", 0.0))
