@@ -17,14 +17,17 @@ from __future__ import annotations
 
 import hashlib
 import struct
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Iterable, Iterator, Mapping
 
 import numpy as np
+import pyarrow as pa
 
 from service.data_io import TrainingData
 from service.stats.columns import CodedLabels
 
 __all__ = ["data_fingerprint", "fingerprint_columns"]
+
+_TEXT_ROWS = 1 << 20  # rows of a text column turned into bytes at a time
 
 
 def data_fingerprint(
@@ -63,15 +66,30 @@ def fingerprint_columns(
                 h.update(b"f" if is_float else b"s")
                 tagged = True
             if is_float:
-                h.update((np.ascontiguousarray(values, dtype="<f8") + 0.0).tobytes())
+                h.update(np.ascontiguousarray(values, dtype="<f8") + 0.0)
             else:
-                h.update(_text_bytes(values))
+                for part in _text_parts(values):
+                    h.update(part)
     return h.hexdigest()
 
 
-def _text_bytes(values: np.ndarray | CodedLabels) -> bytes:
-    """Each value's UTF-8 bytes after its length (uint32 LE), encoded once per distinct value."""
+def _text_parts(values: np.ndarray | CodedLabels) -> Iterator[memoryview]:
+    """Each value's UTF-8 bytes after its length (uint32 LE), as consecutive byte buffers.
+
+    Every distinct value is encoded once; a slice of rows is then one Arrow ``take`` of those
+    pieces by code, whose data buffer is exactly the pieces in row order (no Python work per
+    row).
+    """
     if not isinstance(values, CodedLabels):
         values = CodedLabels.from_strings([str(v) for v in values.tolist()])
     pieces = [struct.pack("<I", len(b)) + b for b in (lv.encode() for lv in values.levels)]
-    return b"".join(map(pieces.__getitem__, values.codes.tolist()))
+    table = pa.array(pieces, pa.large_binary())
+    codes = values.codes
+    for lo in range(0, codes.shape[0], _TEXT_ROWS):
+        taken = table.take(pa.array(codes[lo : lo + _TEXT_ROWS]))
+        offsets = np.frombuffer(taken.buffers()[1], dtype=np.int64)
+        data = taken.buffers()[2]
+        if data is not None:
+            yield memoryview(data)[
+                int(offsets[taken.offset]) : int(offsets[taken.offset + len(taken)])
+            ]
