@@ -66,7 +66,7 @@ def fingerprint_columns(
                 h.update(b"f" if is_float else b"s")
                 tagged = True
             if is_float:
-                h.update(np.ascontiguousarray(values, dtype="<f8") + 0.0)
+                h.update((np.ascontiguousarray(values, dtype="<f8") + 0.0).data)
             else:
                 for part in _text_parts(values):
                     h.update(part)
