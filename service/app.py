@@ -20,6 +20,7 @@ from models_store.db import make_engine, make_session_factory, upgrade
 from service import __version__
 from service.api.errors import install_error_handlers
 from service.api.metrics import AppMetrics, MetricsMiddleware
+from service.compute import apply_compute_settings
 from service.config import Settings, get_settings
 from service.limits import LimitsMiddleware
 from service.schemas import ErrorResponse
@@ -64,6 +65,7 @@ def _routers() -> list[APIRouter]:
 def create_app(settings: Settings | None = None) -> FastAPI:
     """Build the riskfit ASGI app; ``settings`` defaults to the environment's."""
     settings = settings or get_settings()
+    apply_compute_settings(settings)
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:

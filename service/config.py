@@ -122,6 +122,22 @@ class Settings(BaseSettings):
         "default. Empty: the dask engine is disabled.",
     )
 
+    # --- numerical work (service/compute.py) ---
+    fit_threads: int = Field(
+        2,
+        ge=1,
+        le=2,
+        description="Threads per pass over the data in a fit (1 or 2); the results are the same "
+        "bit for bit.",
+    )
+    blas_threads: int = Field(
+        1,
+        ge=1,
+        le=64,
+        description="Threads BLAS may use inside one call; 1 leaves the cores to the fit's lanes "
+        "and to concurrent requests.",
+    )
+
     @field_validator("database_url")
     @classmethod
     def _url_has_scheme(cls, value: str) -> str:
