@@ -3,17 +3,23 @@
 * ``GET /risk-models/{model}/calibration`` (+ ``/calibration/reliability.{svg|png}``)
 * ``GET /risk-models/{model}/drift`` (+ ``/drift/measures.{svg|png}``, ``/drift/psi.{svg|png}``)
 * ``GET /risk-models/{model}/alerts``
+
+The router's lifespan starts :class:`service.monitoring.warm.Warmer` when the app starts
+(outcome snapshots and CUSUM limits built in the background; ``/readyz`` does not wait) and
+stops it at shutdown.
 """
 
 from __future__ import annotations
 
 import threading
-from collections.abc import Callable
+from collections.abc import AsyncIterator, Callable
+from contextlib import asynccontextmanager
 from datetime import datetime
 from typing import Annotated, Any, Literal, TypeVar, cast
 
-from fastapi import APIRouter, Depends, Query, Request, Response
+from fastapi import APIRouter, Depends, FastAPI, Query, Request, Response
 from prometheus_client import Counter, Gauge
+from starlette.concurrency import run_in_threadpool
 
 from models_store.alerts import list_alerts
 from models_store.orm import AlertRecord, RiskModel
@@ -32,10 +38,9 @@ from service.monitoring import (
 )
 from service.monitoring.thresholds import THRESHOLD_FIELDS as ALERT_THRESHOLDS
 from service.monitoring.thresholds import for_model
+from service.monitoring.warm import Warmer
 from service.plots import PlotFormat, drift_figure, psi_figure, reliability_figure, render
 from service.schemas.monitoring import AlertList, CalibrationReportPublic, DriftPublic
-
-router = APIRouter(prefix="/risk-models/{model}", tags=["monitoring"])
 
 MEDIA = {"svg": "image/svg+xml", "png": "image/png"}
 # The alert thresholds (per-model overridable) and the fixed monitoring settings beside them.
@@ -96,23 +101,42 @@ By = Annotated[
 Size = Annotated[int | None, Query(ge=1, le=10_000_000, description="Records or days.")]
 
 
-def _app_object(request: Request, name: str, factory: Callable[[], T]) -> T:
-    """``request.app.state.<name>``, created by ``factory`` on first use (thread-safe)."""
+def _app_state(app: FastAPI, name: str, factory: Callable[[], T]) -> T:
+    """``app.state.<name>``, created by ``factory`` on first use (thread-safe)."""
     with _state_lock:
-        obj = getattr(request.app.state, name, None)
+        obj = getattr(app.state, name, None)
         if obj is None:
             obj = factory()
-            setattr(request.app.state, name, obj)
+            setattr(app.state, name, obj)
     return cast(T, obj)
 
 
 def _limit_cache(request: Request) -> LimitCache:
-    return _app_object(request, "cusum_limits", LimitCache)
+    return _app_state(request.app, "cusum_limits", LimitCache)
 
 
 def outcome_snapshots(request: Request) -> OutcomeSnapshots:
     """The app's in-memory outcome columns per model (see service.monitoring.snapshot)."""
-    return _app_object(request, "outcome_snapshots", OutcomeSnapshots)
+    return _app_state(request.app, "outcome_snapshots", OutcomeSnapshots)
+
+
+@asynccontextmanager
+async def warm_at_start(app: FastAPI) -> AsyncIterator[None]:
+    """Warm the monitoring state in the background while the app serves (see module doc)."""
+    warmer = Warmer(
+        app.state.session_factory,
+        _app_state(app, "outcome_snapshots", OutcomeSnapshots),
+        _app_state(app, "cusum_limits", LimitCache),
+        app.state.settings,
+    )
+    app.state.monitoring_warm = warmer.start()
+    try:
+        yield
+    finally:
+        await run_in_threadpool(warmer.stop)
+
+
+router = APIRouter(prefix="/risk-models/{model}", tags=["monitoring"], lifespan=warm_at_start)
 
 
 def _alert_metrics(request: Request) -> tuple[Counter, Gauge]:

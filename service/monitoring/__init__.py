@@ -8,7 +8,7 @@
 """
 
 from service.monitoring.alerts import alert_public
-from service.monitoring.cusum_monitor import LimitCache
+from service.monitoring.cusum_limits import LimitCache
 from service.monitoring.drift import drift_view
 from service.monitoring.outcomes import ingest_outcomes, outcome_status
 from service.monitoring.report import Window, calibration_view

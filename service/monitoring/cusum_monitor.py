@@ -11,15 +11,15 @@ run length (settings ``cusum_target_arl``, ``cusum_n_sims``; seed 0), risks resa
 the segment's own predictions (its first records, at most 20,000). Streams of 2 x ARL
 records are simulated; a stream that has not signalled by then counts as that long, which
 biases the simulated ARL down and so errs towards a higher limit (fewer false alarms). The
-limit is cached in :class:`LimitCache` per ``(model id, version, reset time, ARL, n_sims,
-R, size class)``: requests stay fast, and the limit is simulated again only when the
-segment grows past 1,000 and 5,000 records (at most three times per segment).
+limit is kept per ``(model, version, reset time, size class, ARL, simulation, R)`` in memory
+and in the store (:mod:`.cusum_limits`): requests stay fast, a restart reuses the stored
+limits, and a limit is simulated again only when the segment grows past 1,000 and 5,000
+records (at most three times per segment).
 """
 
 from __future__ import annotations
 
 import itertools
-import threading
 from datetime import datetime
 from typing import Any
 
@@ -31,43 +31,10 @@ from models_store.orm import RiskModel
 from models_store.scores import ScoreColumns
 from service.config import Settings
 from service.monitoring._json import jsonable
-from service.stats.cusum import ControlLimit, cusum, limit_for_arl
+from service.monitoring.cusum_limits import LimitCache, limit_key
+from service.stats.cusum import ControlLimit, cusum
 
-__all__ = ["LimitCache", "cusum_segment", "cusum_view"]
-
-REFERENCE_RECORDS = 20_000
-LENGTH_FACTOR = 2
-SIZE_CLASSES = (1_000, 5_000)  # reference sizes at which the limit is simulated again
-
-
-class LimitCache:
-    """Thread-safe, bounded in-memory cache of simulated control limits."""
-
-    def __init__(self, max_entries: int = 512) -> None:
-        self._items: dict[tuple[Any, ...], ControlLimit] = {}
-        self._lock = threading.Lock()
-        self.max_entries = max_entries
-
-    def get(
-        self, key: tuple[Any, ...], p_reference: np.ndarray, settings: Settings, odds_ratio: float
-    ) -> ControlLimit:
-        hit = self._items.get(key)
-        if hit is not None:
-            return hit
-        arl = settings.cusum_target_arl
-        limit = limit_for_arl(
-            p_reference[:REFERENCE_RECORDS],
-            odds_ratio=odds_ratio,
-            target_arl=arl,
-            n_sims=settings.cusum_n_sims,
-            max_length=int(LENGTH_FACTOR * arl),
-            seed=0,
-        )
-        with self._lock:
-            if len(self._items) >= self.max_entries:
-                self._items.pop(next(iter(self._items)))
-            self._items[key] = limit
-        return limit
+__all__ = ["cusum_segment", "cusum_view"]
 
 
 def cusum_segment(
@@ -112,6 +79,7 @@ def _thin(path: np.ndarray, points: int = 400) -> dict[str, list[float]]:
 
 def cusum_view(
     *,
+    session: Session | None,
     model: RiskModel,
     cols: ScoreColumns,
     version: int | None,
@@ -120,7 +88,8 @@ def cusum_view(
     settings: Settings,
     cache: LimitCache,
 ) -> dict[str, Any]:
-    """Both charts over ``cols`` (already the segment's records, in score-time order)."""
+    """Both charts over ``cols`` (already the segment's records, in score-time order); new
+    limits are added to ``session`` (the caller commits)."""
     body: dict[str, Any] = {
         "version": version,
         "reset_at": reset_at,
@@ -137,10 +106,16 @@ def cusum_view(
         body["status"] = "not_enough_outcomes"
         return body
     y, p = cols.outcome.astype(np.float64), cols.probability
-    base = (model.id, version, reset_at, settings.cusum_target_arl, settings.cusum_n_sims)
     for side, R in (("up", settings.cusum_odds_ratio_up), ("down", settings.cusum_odds_ratio_down)):
-        size_class = int(np.searchsorted(SIZE_CLASSES, cols.n, side="right"))
-        limit = cache.get((*base, R, size_class), p, settings, R)
+        key = limit_key(
+            model=model,
+            version=version,
+            reset_at=reset_at,
+            n=cols.n,
+            settings=settings,
+            odds_ratio=R,
+        )
+        limit = cache.get(session=session, model=model, key=key, p_reference=p)
         body[side] = _chart(y, p, limit)
     body["status"] = "ok"
     return body

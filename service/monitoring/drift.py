@@ -22,7 +22,8 @@ from models_store.orm import AlertRecord, RiskModel
 from models_store.scores import ScoreColumns
 from service.config import Settings
 from service.monitoring.alerts import alert_public, conditions, store_new_alerts
-from service.monitoring.cusum_monitor import LimitCache, cusum_segment, cusum_view
+from service.monitoring.cusum_limits import LimitCache
+from service.monitoring.cusum_monitor import cusum_segment, cusum_view
 from service.monitoring.input_drift import input_drift
 from service.monitoring.report import Window, counts, fetch_window
 from service.monitoring.snapshot import OutcomeSnapshots
@@ -99,6 +100,7 @@ def drift_view(
         "confidence_level": level,
         "windows": windows,
         "cusum": cusum_view(
+            session=session,
             model=model,
             cols=segment,
             version=version,

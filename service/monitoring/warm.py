@@ -1,0 +1,145 @@
+"""Start-up warming: build the outcome snapshots and CUSUM limits before the first request.
+
+A server's first monitoring request would otherwise pay for a full read of the model's scored
+outcomes (:mod:`.snapshot`) and, for a new segment, the CUSUM limit simulation
+(:mod:`.cusum_limits`). :class:`Warmer` does that work in one background thread when the app
+starts, for the models with the most recent outcomes (at most the snapshot's capacity):
+
+    models by latest outcome id (newest first)
+    -> per model: snapshot (full read), champion segment, both charts' limits (stored ones
+       are loaded, missing ones simulated and stored), commit
+
+Readiness does not wait for it: ``/readyz`` answers as soon as the database does. A
+monitoring request that arrives while its model is being warmed waits on that model's
+snapshot lock and then uses the warmed columns, so it never costs more than without warming.
+Warming stores no alerts (only a drift evaluation does). A failure is logged and leaves the
+work to the first request. Stopping (app shutdown) takes effect between models; :meth:`stop`
+waits for the model in progress.
+"""
+
+from __future__ import annotations
+
+import logging
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from models_store.orm import Outcome, RiskModel
+from service.config import Settings
+from service.monitoring.cusum_limits import LimitCache, limit_key
+from service.monitoring.cusum_monitor import cusum_segment
+from service.monitoring.snapshot import OutcomeSnapshots
+
+__all__ = ["WarmState", "Warmer", "warm_models"]
+
+log = logging.getLogger("riskfit.monitoring")
+
+
+@dataclass
+class WarmState:
+    """What warming did so far (read by tests and benchmarks)."""
+
+    models: list[str] = field(default_factory=list)
+    seconds: float | None = None  # None while running
+    error: str | None = None
+
+
+def _recent_model_ids(session: Session, limit: int) -> list[int]:
+    latest = func.max(Outcome.id)
+    stmt = select(Outcome.model_id).group_by(Outcome.model_id).order_by(latest.desc()).limit(limit)
+    return [int(m) for m in session.scalars(stmt)]
+
+
+def _warm_model(
+    session: Session,
+    model: RiskModel,
+    snapshots: OutcomeSnapshots,
+    cache: LimitCache,
+    settings: Settings,
+) -> None:
+    snap = snapshots.get(session, model)
+    version, reset_at, _ = cusum_segment(session, model, None)
+    if version is None:
+        return
+    segment = snap.columns(since=reset_at, on="score", version=version)
+    if segment.n < settings.monitor_min_events:  # the drift view shows no chart then
+        return
+    for R in (settings.cusum_odds_ratio_up, settings.cusum_odds_ratio_down):
+        key = limit_key(
+            model=model,
+            version=version,
+            reset_at=reset_at,
+            n=segment.n,
+            settings=settings,
+            odds_ratio=R,
+        )
+        cache.get(session=session, model=model, key=key, p_reference=segment.probability)
+    session.commit()
+
+
+def warm_models(
+    session_factory: Callable[[], Session],
+    snapshots: OutcomeSnapshots,
+    cache: LimitCache,
+    settings: Settings,
+    *,
+    stop: threading.Event | None = None,
+    state: WarmState | None = None,
+) -> WarmState:
+    """Warm the most recently active models in turn (see module docstring)."""
+    state = state or WarmState()
+    t0 = time.perf_counter()
+    try:
+        with session_factory() as session:
+            ids = _recent_model_ids(session, snapshots.max_models)
+        for model_id in ids:  # at most the snapshot's capacity: nothing warmed is evicted
+            if stop is not None and stop.is_set():
+                break
+            with session_factory() as session:
+                model = session.get(RiskModel, model_id)
+                if model is not None:
+                    _warm_model(session, model, snapshots, cache, settings)
+                    state.models.append(model.name)
+    except Exception as exc:  # warming is an optimisation: the first request does the work
+        state.error = f"{type(exc).__name__}: {exc}"
+        log.warning("monitoring warm-up stopped: %s", state.error)
+    state.seconds = time.perf_counter() - t0
+    return state
+
+
+class Warmer:
+    """One background thread running :func:`warm_models`; :meth:`stop` ends and joins it."""
+
+    def __init__(
+        self,
+        session_factory: Callable[[], Session],
+        snapshots: OutcomeSnapshots,
+        cache: LimitCache,
+        settings: Settings,
+    ) -> None:
+        self.state = WarmState()
+        self._stop = threading.Event()
+        self._thread = threading.Thread(
+            target=warm_models,
+            args=(session_factory, snapshots, cache, settings),
+            kwargs={"stop": self._stop, "state": self.state},
+            name="riskfit-monitoring-warm",
+            daemon=True,
+        )
+
+    def start(self) -> Warmer:
+        self._thread.start()
+        return self
+
+    def wait(self, timeout: float | None = None) -> bool:
+        """True once warming has finished (within ``timeout`` seconds)."""
+        self._thread.join(timeout)
+        return not self._thread.is_alive()
+
+    def stop(self, timeout: float = 60.0) -> None:
+        self._stop.set()
+        self._thread.join(timeout)
