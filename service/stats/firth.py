@@ -17,11 +17,14 @@ is the inverse information at the estimate.
 
 from __future__ import annotations
 
+from functools import partial
+
 import numpy as np
 from scipy.linalg import solve_triangular
-from scipy.special import expit
 
-from .blocks import BlockSource
+from .blocks import Block, BlockSource
+from .lanes import LANES, lane_slices, run_lanes
+from .likelihood import CHUNK_ROWS, chunks, rows
 
 __all__ = ["half_logdet", "hat_score_adjustment"]
 
@@ -31,26 +34,48 @@ def half_logdet(chol_lower: np.ndarray) -> float:
     return float(np.log(np.diag(chol_lower)).sum())
 
 
+class _HatSums:
+    """One lane's share of the hat pass."""
+
+    def __init__(self, p: int) -> None:
+        self.adj = np.zeros(p)
+        self.trace = 0.0
+
+    def add(self, block: Block, coef: np.ndarray, linv_t: np.ndarray) -> None:
+        for b in chunks(block):
+            eta = b.X @ coef
+            if b.offset is not None:
+                eta += b.offset
+            e = np.exp(-np.abs(eta))
+            d = 1.0 + e
+            mu = np.where(eta >= 0, 1.0, e)
+            mu /= d
+            var = e / (d * d)
+            if b.weights is not None:
+                var *= b.weights
+            Z = b.X @ linv_t  # rows L^-1 x_i, (m, p)
+            h = var * np.einsum("ij,ij->i", Z, Z)
+            self.adj += b.X.T @ (h * (0.5 - mu))
+            self.trace += float(h.sum())
+
+
 def hat_score_adjustment(
     blocks: BlockSource, coef: np.ndarray, chol_lower: np.ndarray
 ) -> tuple[np.ndarray, float]:
     """Second pass at ``coef``: ``sum_i x_i h_i (1/2 - mu_i)`` (p,) and ``sum_i h_i`` (= p).
 
-    ``chol_lower`` is the lower Cholesky factor of ``I(coef)``; ``h_i`` is
-    ``W_ii * ||L^{-1} x_i||^2``.
+    ``chol_lower`` is the lower Cholesky factor ``L`` of ``I(coef)``; ``h_i`` is
+    ``W_ii * ||L^{-1} x_i||^2``, computed as ``X L^{-T}`` by matrix products on the two lanes
+    of :mod:`service.stats.lanes`.
     """
-    adj = np.zeros(coef.shape[0])
-    trace = 0.0
-    for b in blocks():
-        eta = b.X @ coef
-        if b.offset is not None:
-            eta += b.offset
-        mu = expit(eta)
-        var = mu * (1.0 - mu)
-        if b.weights is not None:
-            var *= b.weights
-        Z = solve_triangular(chol_lower, b.X.T, lower=True, check_finite=False)
-        h = var * np.einsum("ij,ij->j", Z, Z)
-        adj += b.X.T @ (h * (0.5 - mu))
-        trace += float(h.sum())
-    return adj, trace
+    p = coef.shape[0]
+    linv_t = np.ascontiguousarray(
+        solve_triangular(chol_lower, np.eye(p), lower=True, check_finite=False).T
+    )
+    lanes = [_HatSums(p) for _ in range(LANES)]
+    for block in blocks():
+        parts = lane_slices(block.X.shape[0], CHUNK_ROWS)
+        run_lanes(
+            [partial(lanes[k].add, rows(block, sl), coef, linv_t) for k, sl in enumerate(parts)]
+        )
+    return lanes[0].adj + lanes[1].adj, lanes[0].trace + lanes[1].trace

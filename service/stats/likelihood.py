@@ -31,7 +31,7 @@ from service.errors import DataError
 from .blocks import Block, BlockSource
 from .lanes import LANES, lane_slices, run_lanes
 
-__all__ = ["DataSummary", "Totals", "loglik_pass", "scan"]
+__all__ = ["CHUNK_ROWS", "DataSummary", "Totals", "chunks", "loglik_pass", "rows", "scan"]
 
 EXTREME_ETA = 30.0  # |eta| beyond which a fitted probability is 0 or 1 to ~1e-13
 CHUNK_ROWS = 4096  # rows per fused step: the chunk and its scaled copy stay in the L2 cache
@@ -127,7 +127,8 @@ def _check_values(b: Block, start: int, term_names: tuple[str, ...]) -> None:
         )
 
 
-def _rows(b: Block, sl: slice) -> Block:
+def rows(b: Block, sl: slice) -> Block:
+    """The rows ``sl`` of a block (views)."""
     return Block(
         b.X[sl],
         b.y[sl],
@@ -136,14 +137,14 @@ def _rows(b: Block, sl: slice) -> Block:
     )
 
 
-def _chunks(b: Block) -> Iterator[Block]:
+def chunks(b: Block) -> Iterator[Block]:
     """Cache-sized slices of a block (the fused pass is memory-bound; see module docstring)."""
     m = b.X.shape[0]
     if m <= CHUNK_ROWS:
         yield b
         return
     for lo in range(0, m, CHUNK_ROWS):
-        yield _rows(b, slice(lo, lo + CHUNK_ROWS))
+        yield rows(b, slice(lo, lo + CHUNK_ROWS))
 
 
 class _ScanSums:
@@ -159,7 +160,7 @@ class _ScanSums:
 
     def add(self, block: Block, start: int, term_names: tuple[str, ...]) -> None:
         _check_values(block, start, term_names)
-        for b in _chunks(block):
+        for b in chunks(block):
             if b.weights is None:
                 m = b.X.shape[0]
                 self.n_pos += m
@@ -191,7 +192,7 @@ def scan(blocks: BlockSource, p: int, term_names: tuple[str, ...]) -> DataSummar
         parts = lane_slices(block.X.shape[0], CHUNK_ROWS)
         run_lanes(
             [
-                partial(lanes[k].add, _rows(block, sl), n_obs + sl.start, term_names)
+                partial(lanes[k].add, rows(block, sl), n_obs + sl.start, term_names)
                 for k, sl in enumerate(parts)
             ]
         )
@@ -221,7 +222,7 @@ class _PassSums:
         self.buf = np.empty((CHUNK_ROWS, p)) if want_info else np.empty((0, p))
 
     def add(self, block: Block, coef: np.ndarray) -> None:
-        for b in _chunks(block):
+        for b in chunks(block):
             self._chunk(b, coef)
 
     def _chunk(self, b: Block, coef: np.ndarray) -> None:
@@ -269,7 +270,7 @@ def loglik_pass(blocks: BlockSource, coef: np.ndarray, *, want_info: bool = True
     lanes = [_PassSums(p, want_info) for _ in range(LANES)]
     for block in blocks():
         parts = lane_slices(block.X.shape[0], CHUNK_ROWS)
-        run_lanes([partial(lanes[k].add, _rows(block, sl), coef) for k, sl in enumerate(parts)])
+        run_lanes([partial(lanes[k].add, rows(block, sl), coef) for k, sl in enumerate(parts)])
     a, b = lanes
     return Totals(
         a.loglik + b.loglik, a.score + b.score, a.info + b.info, a.n_extreme + b.n_extreme
