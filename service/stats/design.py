@@ -204,7 +204,9 @@ def _learn_numeric(item: dict[str, Any], col: Any, prefix: str, i: int) -> Encod
     knots: tuple[float, ...] = ()
     if item["kind"] == "spline":
         knots = knots_at_quantiles(x, item["knot_quantiles"])
-    distinct = f"{np.unique(x).size} distinct values" if len(knots) < 3 else ""
+    # the count only goes into the error of a spline with too few knots (a sort of the column)
+    short = item["kind"] == "spline" and len(knots) < 3
+    distinct = f"{np.unique(x).size} distinct values" if short else ""
     return _numeric_from_facts(
         item,
         FeatureFacts(knots=knots, minimum=float(raw.min()), maximum=float(raw.max())),
@@ -296,9 +298,29 @@ def learn_encoding(
     return _assemble(tuple(feats), inter)
 
 
-def _feature_columns(
-    f: EncodedFeature, col: Any, prefix: str
-) -> tuple[np.ndarray, np.ndarray | None]:
+class _Dummies:
+    """Treatment-coded columns of a categorical feature, built per slice of rows on demand.
+
+    ``table`` (levels, k) holds each level's row of 0/1 (the reference: all 0); row ``i`` of
+    the dummies is ``table[code[i]]``.
+    """
+
+    def __init__(self, code: np.ndarray, table: np.ndarray) -> None:
+        self.code, self.table = code, table
+
+    def rows(self, sl: slice) -> np.ndarray:
+        return np.take(self.table, self.code[sl], axis=0)  # faster than table[code] for 2-d
+
+
+_Part = np.ndarray | _Dummies  # one feature's (n, k) columns, or their coded form
+_FILL_ROWS = 16384  # rows of X filled at a time, so that their cache lines are written once
+
+
+def _rows(part: _Part, sl: slice) -> np.ndarray:
+    return part.rows(sl) if isinstance(part, _Dummies) else part[sl]
+
+
+def _feature_columns(f: EncodedFeature, col: Any, prefix: str) -> tuple[_Part, np.ndarray | None]:
     """(n, k) columns of one feature and its extrapolation mask (None for categorical)."""
     if f.kind == "categorical":
         coded = coded_labels(col, f.name, prefix)
@@ -313,12 +335,10 @@ def _feature_columns(
                 value=u,
                 remedy=f"use one of {list(f.levels)}",
             )
-        code = np.array([index[lv] for lv in coded.levels], dtype=np.intp)[coded.codes]
         dummies = [lv for lv in f.levels if lv != f.reference]
-        out = np.zeros((code.size, len(dummies)))
-        for j, lv in enumerate(dummies):
-            out[:, j] = code == index[lv]
-        return out, None
+        # one row of 0/1 per level of the data, in the data's code order
+        table = np.array([[float(lv == d) for d in dummies] for lv in coded.levels])
+        return _Dummies(coded.codes, table.reshape(len(coded.levels), len(dummies))), None
     raw = numbers(col, f.name, prefix)
     x = numbers(raw, f.name, prefix, log=f.transform == "log")
     mask = (raw < (f.minimum if f.minimum is not None else -np.inf)) | (
@@ -332,9 +352,13 @@ def _feature_columns(
 def design_matrix(
     encoding: Encoding, columns: Columns, *, field_prefix: str = "data.columns"
 ) -> Design:
-    """The (n, p) design matrix of ``encoding`` for raw ``columns``."""
+    """The (n, p) design matrix of ``encoding`` for raw ``columns``.
+
+    ``X`` is filled :data:`_FILL_ROWS` rows at a time (all its columns for those rows), so a
+    large matrix is written once, row-major, instead of once per column with a stride.
+    """
     n = None
-    parts: dict[str, np.ndarray] = {}
+    parts: dict[str, _Part] = {}
     extrapolated: dict[str, np.ndarray] = {}
     for f in encoding.features:
         col = get_column(columns, f.name, field_prefix, n)
@@ -344,12 +368,17 @@ def design_matrix(
             extrapolated[f.name] = mask
     n = n or 0
     X = np.empty((n, len(encoding.term_names)))
-    X[:, 0] = 1.0
-    for f in encoding.features:
-        idx = encoding.term_groups[f.name]
-        X[:, idx[0] : idx[-1] + 1] = parts[f.name]
-    for a, b in encoding.interactions:
-        idx = encoding.term_groups[f"{a}:{b}"]
-        prod = (parts[a][:, :, None] * parts[b][:, None, :]).reshape(n, -1)
-        X[:, idx[0] : idx[-1] + 1] = prod
+    for lo in range(0, n, _FILL_ROWS):
+        sl = slice(lo, min(lo + _FILL_ROWS, n))
+        Xc = X[sl]
+        Xc[:, 0] = 1.0
+        for f in encoding.features:
+            idx = encoding.term_groups[f.name]
+            Xc[:, idx[0] : idx[-1] + 1] = _rows(parts[f.name], sl)
+        for a, b in encoding.interactions:
+            idx = encoding.term_groups[f"{a}:{b}"]
+            pa_, pb = _rows(parts[a], sl), _rows(parts[b], sl)
+            Xc[:, idx[0] : idx[-1] + 1] = (pa_[:, :, None] * pb[:, None, :]).reshape(
+                Xc.shape[0], -1
+            )
     return Design(X, extrapolated)

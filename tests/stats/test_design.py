@@ -31,9 +31,10 @@ SPEC = [
 INTER = [("age", "material"), ("material", "soil"), ("age", "diameter")]
 
 
-def test_columns_match_patsy_treatment_coding() -> None:
+@pytest.mark.parametrize("n", [300, 2 * 16384 + 17])  # one slice of rows; several, the last short
+def test_columns_match_patsy_treatment_coding(n: int) -> None:
     # Reference: patsy.dmatrix with Treatment contrasts and ':' interactions (Wilkinson-Rogers).
-    cols = _columns(1)
+    cols = _columns(1, n)
     enc = learn_encoding(SPEC, cols, INTER)
     X = design_matrix(enc, cols).X
     ref = patsy.dmatrix(
