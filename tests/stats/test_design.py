@@ -148,3 +148,10 @@ def test_bad_interaction_is_a_spec_error() -> None:
     with pytest.raises(SpecError) as err:
         learn_encoding(SPEC, _columns(9), [("age", "colour")])
     assert err.value.field == "spec.interactions[0]"
+
+
+def test_spline_on_too_few_distinct_values_names_the_count() -> None:
+    cols = {"x": [1.0, 2.0] * 50}
+    with pytest.raises(DataError) as err:
+        learn_encoding([{"name": "x", "kind": "spline", "knots": 4}], cols)
+    assert err.value.field == "data.columns.x" and err.value.value == "2 distinct values"
