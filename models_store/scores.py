@@ -107,6 +107,8 @@ def add_score_batch(
     converted once for the whole batch by the column type's own bind processor, and no
     per-row type processing or dict building happens. ``keys`` None means no row has a key.
     The caller has checked that the version exists (the foreign key refuses it otherwise).
+    Keyed rows are inserted in a SAVEPOINT (a key taken concurrently refuses only this batch);
+    rows without keys need none (any failure there is the store's: the caller rolls back).
     """
     rows_for_errors = [{"key": k} for k in keys] if keys is not None else []
     if keys is not None:
@@ -139,6 +141,10 @@ def add_score_batch(
     names = ("id", "model_id", "version_number", "key", "inputs", "eta", "se_eta")
     columns = ", ".join(quote(c) for c in (*names, "probability", "created_at"))
     sql = f"INSERT INTO {quote(table.name)} ({columns}) VALUES ({', '.join([mark] * 9)})"
+    if keys is None:  # fresh ids only: nothing a SAVEPOINT would have to undo on its own
+        for part in chunks(params):
+            conn.exec_driver_sql(sql, list(part))
+        return
     try:
         with session.begin_nested():
             for part in chunks(params):

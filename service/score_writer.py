@@ -12,6 +12,14 @@ tune.
 A request refused on its own account (a :class:`~service.errors.RiskfitError`, e.g. a key
 already used) rolls back only its SAVEPOINT and gets that error; any other failure rolls back
 the whole group and every request in it gets the error (nothing of it was stored).
+
+Rows scored with the champion (``ScoreRows.checks_champion``) are checked against the champion
+read inside the commit's write transaction (:func:`check_champion`: one indexed read per model
+and group; on SQLite the transaction is ``BEGIN IMMEDIATE`` from its start, so no champion
+change can commit between that read and the insert). Rows scored with another version are not
+written; the request gets :class:`ChampionChangedError` naming the current champion and scores
+again. This is what lets the scoring path keep the champion in memory (:mod:`service.version_cache`)
+without serving a stale one.
 """
 
 from __future__ import annotations
@@ -26,13 +34,37 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
+from models_store.champions import model_with_champion
 from models_store.orm import RiskModel
 from models_store.scores import add_score_batch
 from service.errors import RiskfitError, StoreError
 
-__all__ = ["ScoreLogWriter", "ScoreRows", "writer_of"]
+__all__ = [
+    "ChampionChangedError",
+    "ScoreLogWriter",
+    "ScoreRows",
+    "begin_write",
+    "check_champion",
+    "writer_of",
+]
 
 MAX_GROUP_ROWS = 20_000  # rows per group commit (a bound on one transaction's size)
+# SQLite: take the write lock at BEGIN (models_store.db's documented execution option), so the
+# champion read and the insert see one state of the store; PostgreSQL ignores the option.
+_WRITE_TXN = {"riskfit_sqlite_begin": "IMMEDIATE"}
+
+
+class ChampionChangedError(Exception):
+    """The rows were scored with a version that is no longer the champion; nothing written.
+
+    ``number`` is the champion the commit read (None: the model has none). Never reaches a
+    client: the scoring route scores again with ``number``.
+    """
+
+    def __init__(self, model_id: int, number: int | None) -> None:
+        super().__init__(f"the champion of model {model_id} is now {number}")
+        self.model_id = model_id
+        self.number = number
 
 
 @dataclass(frozen=True)
@@ -48,6 +80,7 @@ class ScoreRows:
     se_eta: Sequence[float]
     probability: Sequence[float]
     created_at: datetime
+    checks_champion: bool = False  # scored with the champion: must still be it at commit
 
     def insert(self, session: Session) -> None:
         add_score_batch(
@@ -64,6 +97,35 @@ class ScoreRows:
         )
 
 
+def check_champion(
+    session: Session,
+    rows: ScoreRows,
+    seen: Callable[[int, int | None], None] | None = None,
+    read: dict[int, int | None] | None = None,
+) -> None:
+    """Raise :class:`ChampionChangedError` unless ``rows`` may be written in this transaction.
+
+    Rows that do not claim the champion pass. ``seen(model id, champion)`` is told what was
+    read; ``read`` (model id -> champion) keeps the reads of one transaction.
+    """
+    if not rows.checks_champion:
+        return
+    read = {} if read is None else read
+    model_id = rows.model.id
+    if model_id not in read:
+        found = model_with_champion(session=session, name=rows.model.name)
+        read[model_id] = None if found is None else found[1]
+        if seen is not None:
+            seen(model_id, read[model_id])
+    if read[model_id] != rows.version_number:
+        raise ChampionChangedError(model_id, read[model_id])
+
+
+def begin_write(session: Session) -> None:
+    """Start ``session``'s transaction as a writer (SQLite: ``BEGIN IMMEDIATE``)."""
+    session.connection(execution_options=_WRITE_TXN)
+
+
 _Job = tuple[ScoreRows, "Future[None]"]
 _LOCK = threading.Lock()
 
@@ -75,15 +137,22 @@ def writer_of(state: Any) -> ScoreLogWriter:
         with _LOCK:
             writer = getattr(state, "score_writer", None)
             if writer is None:
-                writer = state.score_writer = ScoreLogWriter(state.session_factory)
+                cache = getattr(state, "version_cache", None)
+                seen = None if cache is None else cache.champion_seen
+                writer = state.score_writer = ScoreLogWriter(state.session_factory, seen)
     return writer
 
 
 class ScoreLogWriter:
     """One daemon thread that commits queued :class:`ScoreRows` in groups."""
 
-    def __init__(self, session_factory: Callable[[], Session]) -> None:
+    def __init__(
+        self,
+        session_factory: Callable[[], Session],
+        champion_seen: Callable[[int, int | None], None] | None = None,
+    ) -> None:
         self._factory = session_factory
+        self._seen = champion_seen
         self._queue: queue.SimpleQueue[_Job | None] = queue.SimpleQueue()
         self._thread = threading.Thread(target=self._run, name="riskfit-score-log", daemon=True)
         self._thread.start()
@@ -129,15 +198,18 @@ class ScoreLogWriter:
                 return
 
     def _commit(self, group: list[_Job]) -> None:
-        own_errors: dict[int, RiskfitError] = {}
+        own_errors: dict[int, Exception] = {}
         try:
             with self._factory() as session:
+                begin_write(session)
+                champions: dict[int, int | None] = {}  # model id -> champion read here
                 for i, (rows, _) in enumerate(group):
                     try:
-                        rows.insert(session)  # in its own SAVEPOINT
+                        check_champion(session, rows, self._seen, champions)
+                        rows.insert(session)  # keyed rows: in their own SAVEPOINT
                     except StoreError:
                         raise  # the store itself failed: the whole group
-                    except RiskfitError as error:
+                    except (RiskfitError, ChampionChangedError) as error:
                         own_errors[i] = error
                 session.commit()
         except BaseException as error:  # the group is rolled back: nothing of it was stored

@@ -40,6 +40,7 @@ from service.version_cache import LoadedVersion, VersionCache
 
 __all__ = [
     "CI_METHOD",
+    "GROUP_COMMIT_MAX_ROWS",
     "LoadedVersion",
     "ScoreInput",
     "ScoredBatch",
@@ -50,6 +51,7 @@ __all__ = [
     "prepare_batch",
     "records_input",
     "score_batch",
+    "score_prepared",
     "score_records",
     "scoring_model",
     "version_to_score",
@@ -122,11 +124,31 @@ def prepare_batch(
 ) -> ScoredBatch:
     """Score a batch (``data(v)`` gives the raw columns version ``v`` needs); nothing stored.
 
-    The caller commits ``rows`` and only then calls ``answer()`` (the JSON-ready body).
+    The version (and the champion, when ``version`` is None) is read in ``session``. The
+    caller commits ``rows`` and only then calls ``answer()`` (the JSON-ready body).
     """
     number = resolve_version(session, model, version)
     v = cache.get(session, model, number)
-    batch = data(v)
+    return score_prepared(
+        model=model, v=v, batch=data(v), confidence_level=confidence_level, explain=explain
+    )
+
+
+def score_prepared(
+    *,
+    model: RiskModel,
+    v: LoadedVersion,
+    batch: ScoreInput,
+    confidence_level: float,
+    explain: bool,
+    checks_champion: bool = False,
+) -> ScoredBatch:
+    """Score ``batch`` with the decoded version ``v``: no store access at all.
+
+    ``checks_champion``: ``v`` was taken as the champion without reading the store, so the
+    commit must find it still the champion (:func:`service.score_writer.check_champion`).
+    """
+    number = v.number
     cols = {name: coerced(batch, name, kind) for name, kind in v.kinds.items()}
     offset = None
     if v.offset:
@@ -137,7 +159,18 @@ def prepare_batch(
     ids = new_score_ids(n)
     created_at = datetime.now(UTC)
     eta, se, p = pred.eta.tolist(), pred.se_eta.tolist(), pred.probability.tolist()
-    rows = ScoreRows(model, number, ids, batch.keys, _inputs_json(batch, v), eta, se, p, created_at)
+    rows = ScoreRows(
+        model,
+        number,
+        ids,
+        batch.keys,
+        _inputs_json(batch, v),
+        eta,
+        se,
+        p,
+        created_at,
+        checks_champion,
+    )
 
     def answer() -> dict[str, Any]:
         warnings = _warnings(n, design.extrapolated, cols, v)

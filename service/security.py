@@ -58,7 +58,7 @@ from starlette.concurrency import run_in_threadpool
 from models_store.audit import record
 from models_store.keys import create_key, find_key_by_hash, get_key, revoke_key, touch_key
 from models_store.orm import ApiKey
-from service.api.deps import ANONYMOUS, ROLE_RANK, Principal, SessionDep
+from service.api.deps import ANONYMOUS, ROLE_RANK, Principal
 from service.audit_hook import install_audit
 from service.config import Settings
 from service.errors import (
@@ -75,6 +75,8 @@ __all__ = [
     "KeyCache",
     "authenticate_first",
     "authorize",
+    "caller_known",
+    "check_role",
     "hash_key",
     "install_audit",
     "issue_key",
@@ -311,8 +313,9 @@ def authorize(request: Request, session: Session, role: str) -> Principal:
     """
     known: Principal | None = getattr(request.state, "riskfit_principal", None)
     if known is None:
-        known = _quick_principal(request, session) or _principal(request, session)
+        known = _quick_principal(request) or _principal(request, session)
         request.state.riskfit_principal = known
+    install_audit(session, key_id=known.key_id)
     return _rank_check(request, known, role)
 
 
@@ -328,18 +331,16 @@ def _required_key(request: Request) -> str:
     return key
 
 
-def _quick_principal(request: Request, session: Session) -> Principal | None:
+def _quick_principal(request: Request) -> Principal | None:
     """The caller without I/O (auth off, or a fresh cache entry for its key), else None."""
     settings: Settings = request.app.state.settings
     if not settings.auth_required:
-        install_audit(session, key_id=None)
         return ANONYMOUS
     digest = hash_key(_required_key(request), settings)
     facts = _cache_of(request.app).get(digest)
     if facts is None:
         return None
     _checked(facts, digest)
-    install_audit(session, key_id=facts.id)
     return Principal(role=facts.role, key_id=facts.id, name=facts.name)  # type: ignore[arg-type]
 
 
@@ -349,8 +350,13 @@ def _principal(request: Request, session: Session) -> Principal:
     row = _known_key(session, settings, _required_key(request), _cache_of(request.app))
     if touch_key(session=session, key=row):
         session.commit()  # last_used_at, at most once a minute per key
-    install_audit(session, key_id=row.id)
     return Principal(role=row.role, key_id=row.id, name=row.name)  # type: ignore[arg-type]
+
+
+def _principal_from_store(request: Request) -> Principal:
+    """:func:`_principal` in a session of its own (a worker thread: it reads the store)."""
+    with request.app.state.session_factory() as session:
+        return _principal(request, session)
 
 
 def _route_role(route: Any) -> str | None:
@@ -363,22 +369,40 @@ def _route_role(route: Any) -> str | None:
     return None
 
 
-async def authenticate_first(request: Request, session: SessionDep) -> None:
+async def authenticate_first(request: Request) -> None:
     """Router-level dependency: check the key before anything else the route depends on.
 
     Without it a route's path lookups (``ModelDep``) could answer 404 to a caller without a
     key, telling strangers which models exist. Routes with no role gate stay open. Runs on
-    the event loop: no thread hop with auth off or a fresh cached key, one for a store read.
+    the event loop: no thread hop with auth off or a fresh cached key, one for a store read
+    (in a session of its own). It takes no request session, so a route that needs none (a
+    score request) makes none; :func:`service.api.deps.get_session` hooks the audit of the
+    request's session to the caller found here (:func:`caller_known`).
     """
     role = _route_role(request.scope.get("route"))
     if role is None:
         return
-    if getattr(request.state, "riskfit_principal", None) is None:
-        known = _quick_principal(request, session)
+    known: Principal | None = getattr(request.state, "riskfit_principal", None)
+    if known is None:
+        known = _quick_principal(request)
         if known is None:
-            known = await run_in_threadpool(_principal, request, session)
-        request.state.riskfit_principal = known
-    authorize(request, session, role)  # the caller is known: a rank comparison only
+            known = await run_in_threadpool(_principal_from_store, request)
+        caller_known(request, known)
+    _rank_check(request, known, role)  # the caller is known: a rank comparison only
+
+
+def caller_known(request: Request, principal: Principal) -> None:
+    """Remember the caller of ``request``; a session the request already has is audited as it."""
+    request.state.riskfit_principal = principal
+    session: Session | None = getattr(request.state, "riskfit_session", None)
+    if session is not None:
+        install_audit(session, key_id=principal.key_id)
+
+
+def check_role(request: Request, role: str) -> Principal:
+    """The known caller of ``request`` if it holds ``role`` (after :func:`authenticate_first`)."""
+    known: Principal = request.state.riskfit_principal
+    return _rank_check(request, known, role)
 
 
 def own_key_headers(app: Any, *, role: str = "modeler", name: str = "demo") -> dict[str, str]:

@@ -1,4 +1,18 @@
-"""Decoded versions for scoring, cached in memory (versions are immutable, so never stale)."""
+"""What scoring reads from the store, kept in memory: decoded versions and the last champion seen.
+
+* Versions are immutable, so a decoded version (keyed by ``(model id, number)``) is never stale.
+* Models are never renamed or deleted, so ``name -> model`` is never stale either.
+* The champion *can* change, from this process or another one on the same database. The cache
+  keeps the champion number last seen for each model, and the scoring path never trusts it on
+  its own: the score-log commit re-reads the champion inside its write transaction
+  (:func:`service.score_writer.check_champion`) and refuses rows scored with another version
+  (:class:`~service.score_writer.ChampionChangedError`); the request then scores again with the
+  number the commit saw. So a champion change acknowledged to anyone is served by every
+  process from the next request on (no staleness window), and the check costs one indexed
+  read per group commit instead of a session and a store read per request. The writer also
+  tells the cache what it read (:meth:`VersionCache.champion_seen`).
+* A model without a champion, or one not cached yet, is read from the store (errors always are).
+"""
 
 from __future__ import annotations
 
@@ -42,6 +56,39 @@ class VersionCache:
         self._items: dict[tuple[int, int], LoadedVersion] = {}
         self._lock = threading.Lock()
         self.max_entries = max_entries
+        self._models: dict[str, tuple[RiskModel, int]] = {}  # name -> (model, champion seen)
+        self._names: dict[int, str] = {}  # model id -> name
+
+    def peek(self, model_id: int, number: int) -> LoadedVersion | None:
+        """The decoded version if cached (no store read)."""
+        return self._items.get((model_id, number))
+
+    def model(self, name: str) -> tuple[RiskModel, int] | None:
+        """``(model, champion number last seen)`` for ``name``, or None (read the store)."""
+        return self._models.get(name)
+
+    def remember_model(self, model: RiskModel, champion: int | None) -> None:
+        """Keep ``model`` (detached, read-only) and its champion (not kept without one)."""
+        if champion is None:
+            return
+        with self._lock:
+            if len(self._models) >= self.max_entries:
+                self._models.clear()
+                self._names.clear()
+            self._models[model.name] = (model, champion)
+            self._names[model.id] = model.name
+
+    def champion_seen(self, model_id: int, champion: int | None) -> None:
+        """The champion of ``model_id`` as a commit just read it (None: forget the model)."""
+        name = self._names.get(model_id)
+        hit = self._models.get(name) if name is not None else None
+        if hit is None or hit[1] == champion:
+            return
+        with self._lock:
+            if champion is None:
+                self._models.pop(hit[0].name, None)
+            else:
+                self._models[hit[0].name] = (hit[0], champion)
 
     def get(self, session: Session, model: RiskModel, number: int) -> LoadedVersion:
         key = (model.id, number)

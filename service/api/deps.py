@@ -3,7 +3,8 @@
 * :data:`SettingsDep` - the app's :class:`~service.config.Settings`.
 * :data:`SessionDep` - one SQLAlchemy session per request from ``app.state.session_factory``;
   domain operations commit, the session is closed (and anything uncommitted rolled back)
-  when the request ends.
+  when the request ends. Its writes are audited as the caller (``install_audit``). Only
+  routes that name it get one: the key check and role gates take none.
 * :data:`ModelDep` - the ``{model}`` path parameter loaded from the store, or
   :class:`~service.errors.ModelNotFoundError` (404). Written once here, never per route.
 * :data:`ScorerAccess`, :data:`ModelerAccess`, :data:`AdminAccess` - role gates built by
@@ -14,9 +15,10 @@ instead of costing a worker-thread hop each: the settings, making a session (it 
 lazily), closing one that holds no transaction, and a role check of a caller already
 identified in this request. Everything that may touch the store runs in the thread pool.
 
-Access: :func:`require_role` checks the API key through :func:`service.security.authorize`
-(401 for a missing, unknown or revoked key; 403 naming the role needed). Tests may install
-``app.state.access_checker`` (a callable ``(request, role) -> Principal``) to replace it.
+Access: :func:`require_role` admits the caller identified by the router-level key check
+:func:`service.security.authenticate_first` (401 for a missing, unknown or revoked key; 403
+naming the role needed). Tests may install ``app.state.access_checker`` (a callable
+``(request, role) -> Principal``) to replace it.
 """
 
 from __future__ import annotations
@@ -88,9 +90,16 @@ SettingsDep = Annotated[Settings, Depends(get_settings_dep)]
 async def get_session(request: Request) -> AsyncIterator[Session]:
     factory: Callable[[], Session] = request.app.state.session_factory
     session = factory()  # no connection yet: it is taken at the first statement
+    principal: Principal | None = getattr(request.state, "riskfit_principal", None)
+    if principal is not None:  # known already (the router's key check ran first): audit as it
+        from service.security import install_audit  # security imports this module
+
+        install_audit(session, key_id=principal.key_id)
+    request.state.riskfit_session = session  # a caller identified later is audited on it
     try:
         yield session
     finally:
+        request.state.riskfit_session = None
         if session.in_transaction():
             await run_in_threadpool(session.close)  # rolls back: a round trip to the store
         else:
@@ -111,21 +120,22 @@ ModelDep = Annotated[RiskModel, Depends(get_model)]
 def require_role(role: Role) -> Callable[..., Awaitable[Principal]]:
     """A dependency that admits callers holding ``role`` or a higher one.
 
-    Checks the API key (:func:`service.security.authorize`: 401 for a missing, unknown or
-    revoked key, 403 naming the role needed) unless ``app.state.access_checker`` replaces it.
+    Checks the API key (:func:`service.security.authenticate_first`: 401 for a missing,
+    unknown or revoked key, 403 naming the role needed) unless ``app.state.access_checker``
+    replaces it. Takes no session: on the event loop, without I/O for a known caller.
     """
 
-    async def check_access(request: Request, session: SessionDep) -> Principal:
+    async def check_access(request: Request) -> Principal:
         checker: Callable[[Request, Role], Principal] | None = getattr(
             request.app.state, "access_checker", None
         )
         if checker is not None:
             return await run_in_threadpool(checker, request, role)
-        from service.security import authorize  # security imports this module
+        from service.security import authenticate_first, check_role  # security imports us
 
-        if getattr(request.state, "riskfit_principal", None) is not None:
-            return authorize(request, session, role)  # caller known: a rank comparison only
-        return await run_in_threadpool(authorize, request, session, role)
+        if getattr(request.state, "riskfit_principal", None) is None:
+            await authenticate_first(request)  # (the router-level check normally ran first)
+        return check_role(request, role)  # the caller is known: a rank comparison only
 
     check_access.__name__ = f"require_{role}"
     return check_access

@@ -4,17 +4,13 @@ The body is parsed once with orjson from the raw bytes; only the options go thro
 (:class:`ScoreOptions`), the data (``records`` or ``columns``) are validated as arrays by the
 scoring operation. The documented body is :class:`ScoreCreate`.
 
-Where it runs: a small body (up to :data:`_INLINE_MAX_BYTES`, a few records) on a SQLite store
-is read, scored and handed to the group-commit writer on the event loop, which then awaits the
-commit without holding a thread (the store read is in-process, a fraction of a millisecond; a
-thread hop and the GIL hand-over cost more). Anything else, and every PostgreSQL request (a
-network round trip), takes one worker-thread hop. Either way the answer exists only after the
-score-log rows are committed.
+The request takes no session: the model, champion and version come from memory and the
+score log is written by the group-commit writer (:mod:`service.score_serving`); the answer
+exists only after the score-log rows are committed.
 """
 
 from __future__ import annotations
 
-import asyncio
 import json
 from typing import Any, NoReturn
 
@@ -22,31 +18,18 @@ import orjson
 from fastapi import APIRouter, Request
 from fastapi.exceptions import RequestValidationError
 from pydantic import ValidationError
-from starlette.concurrency import run_in_threadpool
 
-from service.api.deps import ModelName, ScorerAccess, SessionDep, SettingsDep
+from service.api.deps import ModelName, ScorerAccess
 from service.api.responses import JSONBytes
 from service.errors import DataError
 from service.limits import JSON_SCOPE_KEY
 from service.schemas import ErrorResponse, ScoreBatchPublic, ScoreCreate
 from service.schemas.scores import ScoreOptions
-from service.score_writer import writer_of
-from service.scoring import (
-    LoadedVersion,
-    ScoredBatch,
-    ScoreInput,
-    columns_input,
-    log_batch,
-    prepare_batch,
-    records_input,
-    scoring_model,
-    version_to_score,
-)
+from service.score_serving import serve_scores
 
 router = APIRouter(prefix="/risk-models/{model}/scores", tags=["scores"])
 
 _BODY_SCHEMA = ScoreCreate.model_json_schema(ref_template="#/components/schemas/{model}")
-_INLINE_MAX_BYTES = 4096  # SQLite and a body this small: scored on the event loop (a few ms)
 _LAYOUT_REMEDY = 'send {"records": [{...}, ...]} or {"columns": {"feature": [...], ...}}'
 
 
@@ -139,47 +122,12 @@ def _invalid(loc: tuple[str | int, ...], message: str, value: Any) -> NoReturn:
         }
     },
 )
-async def post_scores(
-    model: ModelName,
-    session: SessionDep,
-    settings: SettingsDep,
-    request: Request,
-    _: ScorerAccess,
-) -> JSONBytes:
+async def post_scores(model: ModelName, request: Request, _: ScorerAccess) -> JSONBytes:
     raw = await request.body()
     parsed = request.scope.pop(JSON_SCOPE_KEY, _UNPARSED)
     state = request.app.state
-    writer = writer_of(state)
-
-    def prepare() -> ScoredBatch:  # store read (404 before the body), parse, score
-        found, champion = scoring_model(session=session, name=model)
-        options, data, is_columns = _parse(raw, parsed)
-
-        def batch(v: LoadedVersion) -> ScoreInput:
-            return columns_input(data, v.inputs) if is_columns else records_input(data, v.inputs)
-
-        return prepare_batch(
-            session=session,
-            model=found,
-            data=batch,
-            version=version_to_score(found, options.version, champion),
-            confidence_level=options.confidence_level or settings.default_confidence_level,
-            explain=options.explain,
-            cache=state.version_cache,
-        )
-
-    if len(raw) <= _INLINE_MAX_BYTES and state.engine.dialect.name == "sqlite":
-        scored = prepare()  # an in-process read and a few records: cheaper than a thread hop
-        session.commit()  # ends the read transaction (SQLite: no I/O wait)
-        await asyncio.wrap_future(writer.submit(scored.rows))  # durable before the answer
-        answer = scored.answer()
-    else:
-
-        def work() -> dict[str, Any]:  # one worker-thread hop: store read, score, log
-            scored = prepare()
-            log_batch(session, scored.rows, writer)  # durable before the answer
-            return scored.answer()
-
-        answer = await run_in_threadpool(work)
+    answer = await serve_scores(
+        state=state, name=model, body_bytes=len(raw), parse=lambda: _parse(raw, parsed)
+    )
     state.metrics.records_scored.labels(model).inc(answer["n_records"])
     return JSONBytes(answer)
