@@ -41,6 +41,7 @@ __all__ = [
 ]
 
 NUMERIC_KINDS = frozenset({"numeric", "spline"})
+CSV_DICTIONARY_LEVELS = 1000  # a CSV text column with more distinct values is read as plain text
 FieldNamer = Callable[[int], str]
 _MISSING = object()
 
@@ -59,6 +60,15 @@ class TrainingData:
     offset: np.ndarray | None
     n_obs: int
     coded: dict[str, CodedLabels] = field(default_factory=dict)
+
+    def level_columns(self) -> dict[str, np.ndarray]:
+        """``columns`` with each coded categorical replaced by its distinct levels (object array).
+
+        For checks that only look at the distinct values of a categorical column (the limits
+        on their count and length): one entry per level instead of one per row.
+        """
+        levels = {k: np.array(c.levels, dtype=object) for k, c in self.coded.items()}
+        return {**self.columns, **levels}
 
 
 def _level_text(value: Any) -> str:
@@ -206,8 +216,21 @@ def columns_from_rows(
     return out
 
 
-def read_table(content: bytes, *, filename: str | None, content_type: str | None) -> pa.Table:
-    """A CSV or Parquet upload as a pyarrow table (Parquet recognised by its ``PAR1`` magic)."""
+def read_table(
+    content: bytes,
+    *,
+    filename: str | None,
+    content_type: str | None,
+    categorical: Sequence[str] = (),
+) -> pa.Table:
+    """A CSV or Parquet upload as a pyarrow table (Parquet recognised by its ``PAR1`` magic).
+
+    Text columns come as dictionary arrays where that is cheap, so that a categorical column
+    is coded without materialising its strings: Parquet columns named in ``categorical``
+    (``read_dictionary``; other names are ignored), and CSV text columns of up to
+    :data:`CSV_DICTIONARY_LEVELS` distinct values (``auto_dict_encode``; numbers stay numbers,
+    so a level written ``3.0`` still reads as ``"3"``).
+    """
     if not content:
         raise DataError(
             "the uploaded file is empty",
@@ -218,8 +241,11 @@ def read_table(content: bytes, *, filename: str | None, content_type: str | None
     is_parquet = content[:4] == b"PAR1" or (filename or "").lower().endswith(".parquet")
     try:
         if is_parquet:
-            return pq.read_table(io.BytesIO(content))
-        return pa_csv.read_csv(io.BytesIO(content))
+            return pq.read_table(io.BytesIO(content), read_dictionary=list(categorical) or None)
+        convert = pa_csv.ConvertOptions(
+            auto_dict_encode=True, auto_dict_max_cardinality=CSV_DICTIONARY_LEVELS
+        )
+        return pa_csv.read_csv(io.BytesIO(content), convert_options=convert)
     except (pa.ArrowInvalid, pa.ArrowTypeError, OSError, ValueError) as exc:
         kind = "Parquet" if is_parquet else "CSV"
         first_line = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else ""

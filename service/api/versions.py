@@ -100,7 +100,10 @@ async def _parse_fit_request(request: Request) -> tuple[VersionSpec, dict[str, A
         finally:
             await form.close()  # the spooled upload files
         spec = _validated(VersionSpec, spec_raw)
-        table = read_table(content, filename=filename, content_type=upload_type)
+        categorical = [f.name for f in spec.features if f.kind == "categorical"]
+        table = read_table(
+            content, filename=filename, content_type=upload_type, categorical=categorical
+        )
         return spec, table_columns(table, needed_columns(spec)), "columns"
     body: VersionCreate = _validated(VersionCreate, await request.body())
     if body.data.path is not None:
@@ -167,7 +170,7 @@ async def post_version(
             offset=options.offset,
             layout=layout,
         )
-        check_training_data(settings, kinds, data.columns, data.n_obs)
+        check_training_data(settings, kinds, data.level_columns(), data.n_obs)
         times.lap("validate")
         level = options.confidence_level or settings.default_confidence_level
         m, v, _ = fit_version(

@@ -1,0 +1,114 @@
+"""File uploads read as the JSON columns are: number-like levels, limits on levels, empty cells.
+
+Common practice: a CSV writer may print the integer level 2 as ``2.0``; both are one level.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from typing import Any
+
+import pyarrow as pa
+import pyarrow.csv as pa_csv
+import pyarrow.parquet as pq
+import pytest
+
+from service.app import create_app
+from service.config import Settings
+from tests.api._data import SPEC, fit_body, segments
+from tests.api.conftest import ApiClient
+
+SOIL_CODES = {"low": 1, "moderate": 2, "high": 3}
+CODED_SPEC = {
+    **SPEC,
+    "features": [{**f, "reference": "1"} if f["name"] == "soil" else f for f in SPEC["features"]],
+}
+
+
+def _upload(
+    api: ApiClient, model: str, content: bytes, fmt: str, spec: dict[str, Any] = SPEC
+) -> Any:
+    return api.post(
+        f"/risk-models/{model}/versions",
+        data={"spec": json.dumps(spec)},
+        files={"data": (f"segments.{fmt}", content, "application/octet-stream")},
+    )
+
+
+def _csv(table: pa.Table) -> bytes:
+    buf = io.BytesIO()
+    pa_csv.write_csv(table, buf)
+    return buf.getvalue()
+
+
+def _parquet(table: pa.Table) -> bytes:
+    buf = io.BytesIO()
+    pq.write_table(table, buf, row_group_size=300)  # several row groups: several dictionaries
+    return buf.getvalue()
+
+
+def test_number_like_levels_in_files_equal_json_numbers(api: ApiClient) -> None:
+    cols = segments(900, seed=21)
+    cols["soil"] = [SOIL_CODES[s] for s in cols["soil"]]
+    base = api.post("/risk-models/json/versions", json={**CODED_SPEC, "data": {"columns": cols}})
+    assert base.status_code == 201, base.text
+    # CSV: the soil codes written as 1.0 / 2.0 / 3.0 (floats) read as the levels "1", "2", "3"
+    as_float = pa.table({**cols, "soil": [float(v) for v in cols["soil"]]})
+    for model, content, fmt in (
+        ("csv", _csv(as_float), "csv"),
+        ("parquet-int", _parquet(pa.table(cols)), "parquet"),
+    ):
+        r = _upload(api, model, content, fmt, CODED_SPEC)
+        assert r.status_code == 201, r.text
+        assert r.json()["encoding"] == base.json()["encoding"]
+        assert r.json()["term_table"] == base.json()["term_table"]
+        assert r.json()["data_fingerprint"] == base.json()["data_fingerprint"]
+
+
+def test_text_levels_spread_over_row_groups_and_csv_blocks(api: ApiClient) -> None:
+    cols = segments(900, seed=22)
+    # a level first seen in the last row group
+    cols["material"] = cols["material"][:-200] + ["clay"] * 200
+    base = api.post("/risk-models/json/versions", json=fit_body(cols)).json()
+    assert any(t["name"] == "material=clay" for t in base["term_table"]["terms"])
+    for fmt, content in (("parquet", _parquet(pa.table(cols))), ("csv", _csv(pa.table(cols)))):
+        r = _upload(api, fmt, content, fmt)
+        assert r.status_code == 201, r.text
+        assert r.json()["term_table"] == base["term_table"]
+        assert r.json()["data_fingerprint"] == base["data_fingerprint"]
+
+
+@pytest.mark.parametrize("fmt", ["json", "csv", "parquet"])
+def test_too_many_or_too_long_levels_are_refused(settings: Settings, fmt: str) -> None:
+    api = ApiClient(create_app(settings.model_copy(update={"max_levels": 3})))
+    try:
+        cols = segments(600, seed=23)  # material has 4 levels
+        if fmt == "json":
+            r = api.post("/risk-models/m/versions", json=fit_body(cols))
+        else:
+            table = pa.table(cols)
+            r = _upload(api, "m", _csv(table) if fmt == "csv" else _parquet(table), fmt)
+        assert r.status_code == 422, r.text
+        err = r.json()["error"]
+        assert err["field"] == "data.columns.material" and err["value"] == 4, err
+        assert api.get("/risk-models/m/versions").status_code == 404  # nothing stored
+    finally:
+        api.close()
+    api = ApiClient(create_app(settings.model_copy(update={"max_string_length": 8})))
+    try:
+        # a file (a JSON body meets the body walk's string limit first)
+        r = _upload(api, "m", _csv(pa.table(segments(600, seed=23))), "csv")
+        assert r.status_code == 422, r.text
+        assert r.json()["error"]["field"] == "data.columns.material"
+        assert r.json()["error"]["value"] == len("asbestos cement")
+    finally:
+        api.close()
+
+
+def test_an_empty_categorical_cell_in_parquet_is_named(api: ApiClient) -> None:
+    cols = segments(600, seed=24)
+    cols["soil"][17] = None
+    r = _upload(api, "m", _parquet(pa.table(cols)), "parquet")
+    assert r.status_code == 422, r.text
+    assert r.json()["error"]["field"] == "data.columns.soil[17]"
