@@ -81,14 +81,14 @@ def test_missed_rows_are_found_by_the_overlap_or_a_full_read(api: ApiClient) -> 
     # as if two transactions with lower ids committed after the last refresh
     gap = np.ones(full.n, dtype=bool)
     gap[[10, 200]] = False
-    snaps._items[model_id] = Snapshot({k: v[gap] for k, v in full.cols.items()})
+    snaps._items[model_id] = Snapshot({k: v[gap] for k, v in full.cols.items()}, full.received_us)
     _check(api, snaps)
     assert snaps.full_reads == 1  # the overlap re-read found them, deduplicated by id
     # a transaction slower than the overlap: only a full read finds it
     snaps.overlap = timedelta(0)
     old = {k: v[gap] for k, v in full.cols.items()}
-    old["received_us"] = old["received_us"] + 10**9  # the held rows look newer than the gap
-    snaps._items[model_id] = Snapshot(old)
+    # the held rows look newer than the gap (a later receipt time held)
+    snaps._items[model_id] = Snapshot(old, full.received_us + 10**9)
     assert _check(api, snaps).n == 400 and snaps.full_reads == 2
 
 
