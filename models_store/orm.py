@@ -34,6 +34,7 @@ from sqlalchemy import (
     Text,
     UniqueConstraint,
     event,
+    text,
 )
 from sqlalchemy.orm import (
     DeclarativeBase,
@@ -179,15 +180,33 @@ class ChampionChange(Base):
 
 
 class Score(Base):
-    """The score log: one row per scored record, written before the response returns."""
+    """The score log: one row per scored record, written before the response returns.
+
+    Storage is chosen for the insert, the hot path (10,000 rows per big batch):
+
+    * SQLite keeps the rows in the primary-key B-tree itself (``WITHOUT ROWID``): the ids are
+      time-ordered UUIDs (service.score_log_rows), so a batch appends at the tree's right edge
+      and no separate rowid table plus id index is written. PostgreSQL ignores the option.
+    * Keys are unique per model through a *partial* unique index (``key IS NOT NULL``): most
+      scores carry no key and then cost no entry in it. Look-ups by key (``key IN (...)``)
+      imply ``key IS NOT NULL`` and use it on both backends.
+    """
 
     __tablename__ = "score"
     __table_args__ = (
-        UniqueConstraint("model_id", "key"),
+        Index(
+            "uq_score_model_id_key",
+            "model_id",
+            "key",
+            unique=True,
+            sqlite_where=text("key IS NOT NULL"),
+            postgresql_where=text("key IS NOT NULL"),
+        ),
         ForeignKeyConstraint(
             ["model_id", "version_number"], ["model_version.model_id", "model_version.number"]
         ),
         Index(None, "model_id", "created_at"),
+        {"sqlite_with_rowid": False},
     )
 
     id: Mapped[str] = mapped_column(String(36), primary_key=True)

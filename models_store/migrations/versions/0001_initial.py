@@ -208,7 +208,15 @@ def upgrade() -> None:
             ["model_id"], ["risk_model.id"], name=op.f("fk_score_model_id_risk_model")
         ),
         sa.PrimaryKeyConstraint("id", name=op.f("pk_score")),
-        sa.UniqueConstraint("model_id", "key", name=op.f("uq_score_model_id_key")),
+        sqlite_with_rowid=False,  # rows live in the id B-tree (see models_store.orm.Score)
+    )
+    op.create_index(
+        "uq_score_model_id_key",
+        "score",
+        ["model_id", "key"],
+        unique=True,
+        sqlite_where=sa.text("key IS NOT NULL"),
+        postgresql_where=sa.text("key IS NOT NULL"),
     )
     op.create_index(op.f("ix_score_model_id_created_at"), "score", ["model_id", "created_at"])
 
@@ -268,6 +276,7 @@ def downgrade() -> None:
 
     op.drop_table("outcome")
     op.drop_index(op.f("ix_score_model_id_created_at"), table_name="score")
+    op.drop_index("uq_score_model_id_key", table_name="score")
 
     op.drop_table("score")
     op.drop_table("champion_change")
