@@ -5,13 +5,13 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
 from models_store._types import utcnow
 from models_store.orm import AlertRecord, RiskModel
 
-__all__ = ["add_alert", "find_open_alert", "list_alerts", "resolve_alert"]
+__all__ = ["add_alert", "close_open_alert", "find_open_alert", "list_alerts", "resolve_alert"]
 
 
 def add_alert(
@@ -84,3 +84,16 @@ def resolve_alert(
         alert.resolved_at = resolved_at or utcnow()
         session.flush()
     return alert
+
+
+def close_open_alert(*, session: Session, alert_id: int, resolved_at: datetime) -> bool:
+    """Set ``resolved_at`` of alert ``alert_id`` if it is still open, in one conditional UPDATE
+    (so of two concurrent closers exactly one succeeds); False when it is absent or closed."""
+    stmt = (
+        update(AlertRecord)
+        .where(AlertRecord.id == alert_id, AlertRecord.resolved_at.is_(None))
+        .values(resolved_at=resolved_at)
+        .execution_options(synchronize_session=False)
+    )
+    result = session.execute(stmt)
+    return bool(getattr(result, "rowcount", 0) == 1)

@@ -2,7 +2,7 @@
 
 * ``GET /risk-models/{model}/calibration`` (+ ``/calibration/reliability.{svg|png}``)
 * ``GET /risk-models/{model}/drift`` (+ ``/drift/measures.{svg|png}``, ``/drift/psi.{svg|png}``)
-* ``GET /risk-models/{model}/alerts``
+* ``GET /risk-models/{model}/alerts``, ``POST /risk-models/{model}/alerts/{alert_id}/resolution``
 
 The router's lifespan starts :class:`service.monitoring.warm.Warmer` when the app starts
 (outcome snapshots and CUSUM limits built in the background; ``/readyz`` does not wait) and
@@ -17,14 +17,14 @@ from contextlib import asynccontextmanager
 from datetime import datetime
 from typing import Annotated, Any, Literal, TypeVar, cast
 
-from fastapi import APIRouter, Depends, FastAPI, Query, Request, Response
+from fastapi import APIRouter, Depends, FastAPI, Path, Query, Request, Response
 from prometheus_client import Counter, Gauge
 from starlette.concurrency import run_in_threadpool
 
 from models_store.alerts import list_alerts
 from models_store.orm import AlertRecord, RiskModel
 from models_store.versions import require_version
-from service.api.deps import ModelDep, ScorerAccess, SessionDep, SettingsDep
+from service.api.deps import ModelDep, ModelerAccess, ScorerAccess, SessionDep, SettingsDep
 from service.api.responses import JSONBytes
 from service.config import Settings
 from service.errors import InvalidInputError
@@ -36,11 +36,13 @@ from service.monitoring import (
     calibration_view,
     drift_view,
 )
+from service.monitoring.alert_resolution import resolve_model_alert
 from service.monitoring.thresholds import THRESHOLD_FIELDS as ALERT_THRESHOLDS
 from service.monitoring.thresholds import for_model
 from service.monitoring.warm import Warmer
 from service.plots import PlotFormat, drift_figure, psi_figure, reliability_figure, render
-from service.schemas.monitoring import AlertList, CalibrationReportPublic, DriftPublic
+from service.schemas import ErrorResponse
+from service.schemas.monitoring import AlertList, AlertPublic, CalibrationReportPublic, DriftPublic
 
 MEDIA = {"svg": "image/svg+xml", "png": "image/png"}
 # The alert thresholds (per-model overridable) and the fixed monitoring settings beside them.
@@ -154,7 +156,7 @@ def _alert_metrics(request: Request) -> tuple[Counter, Gauge]:
                 ),
                 Gauge(
                     "riskfit_alerts_open",
-                    "Open monitoring alerts per model at the last evaluation.",
+                    "Open monitoring alerts per model (set by drift evaluations, resolutions).",
                     ("model",),
                     registry=registry,
                 ),
@@ -323,3 +325,31 @@ def get_alerts(
     limit: Annotated[int, Query(ge=1, le=10_000)] = 500,
 ) -> JSONBytes:
     return JSONBytes(alerts_public(session, model, settings, open_only, limit))
+
+
+@router.post(
+    "/alerts/{alert_id}/resolution",
+    response_model=AlertPublic,
+    summary="Resolve (close) an open alert",
+    description="Marks the alert resolved now and answers it with `open: false` and "
+    "`resolved_at`. Needs the modeler role; audited as `alert.resolve` with the acting key. "
+    "An unknown alert id (or another model's) is 404 and an alert already resolved is 409, "
+    "both naming `alert_id`. Resolving records a decision and changes no measure: the same "
+    "condition is not raised again, later windows or CUSUM signals raise new alerts.",
+    responses={409: {"model": ErrorResponse, "description": "The alert is already resolved."}},
+)
+def post_alert_resolution(
+    request: Request,
+    model: ModelDep,
+    session: SessionDep,
+    who: ModelerAccess,
+    alert_id: Annotated[
+        int, Path(ge=1, le=2_147_483_647, description="The alert's `id` from the alert list.")
+    ],
+) -> JSONBytes:
+    body = resolve_model_alert(session=session, model=model, alert_id=alert_id, key_id=who.key_id)
+    _, open_gauge = _alert_metrics(request)
+    open_gauge.labels(model.name).set(
+        len(list_alerts(session=session, model=model, open_only=True))
+    )
+    return JSONBytes(body)

@@ -40,6 +40,7 @@ LEAST_ROLE: dict[tuple[str, str], str] = {
     ("GET", "/risk-models/{model}/drift"): "scorer",
     ("GET", "/risk-models/{model}/drift/{plot}.{fmt}"): "scorer",
     ("GET", "/risk-models/{model}/alerts"): "scorer",
+    ("POST", "/risk-models/{model}/alerts/{alert_id}/resolution"): "modeler",
     ("GET", "/risk-models/{model}/alert-thresholds"): "scorer",
     ("PUT", "/risk-models/{model}/alert-thresholds"): "modeler",
     ("GET", "/dashboard"): "scorer",
@@ -54,7 +55,7 @@ LEAST_ROLE: dict[tuple[str, str], str] = {
 }
 # path parameters: the fitted model, an existing version, ids that do not exist (no side effects)
 PARAMS = {"model": MODEL, "number": "1", "key_id": "999999", "refit_id": "999999",
-          "fmt": "svg", "plot": "calibration"}  # fmt: skip
+          "alert_id": "999999", "fmt": "svg", "plot": "calibration"}  # fmt: skip
 
 
 def walk(routes: Any) -> Iterator[APIRoute]:

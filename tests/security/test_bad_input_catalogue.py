@@ -21,6 +21,7 @@ FIT = f"/risk-models/{MODEL}/versions"
 SCORE = f"/risk-models/{MODEL}/scores"
 OUTCOMES = f"/risk-models/{MODEL}/outcomes"
 CHAMPION = f"/risk-models/{MODEL}/champion"
+RESOLVE = f"/risk-models/{MODEL}/alerts/{{}}/resolution"
 RAW = {"content-type": "application/json"}
 
 
@@ -279,6 +280,8 @@ CATALOGUE: list[tuple[str, str, str, dict[str, Any], int, str]] = [
         "model",
     ),
     ("unknown-version", "PUT", CHAMPION, {"json": {"version": 99, "reason": "x"}}, 404, "version"),
+    ("unknown-alert", "POST", RESOLVE.format(999999), {}, 404, "alert_id"),
+    ("alert-id-not-a-number", "POST", RESOLVE.format("all"), {}, 422, "alert_id"),
     (
         "oversized-body",
         "POST",
