@@ -24,6 +24,7 @@ __all__ = ["LANES", "lane_slices", "pass_threads", "run_lanes", "set_pass_thread
 LANES = 2
 MIN_LANE_ROWS = 8192  # a block shorter than 2 x this stays in lane 0: splitting would cost more
 
+_PREFIX = "riskfit-lane"
 _lock = threading.Lock()
 _pool: ThreadPoolExecutor | None = None
 _threads = 2 if (os.cpu_count() or 1) >= 2 else 1
@@ -66,7 +67,7 @@ def _worker() -> ThreadPoolExecutor:
     global _pool
     with _lock:
         if _pool is None:
-            _pool = ThreadPoolExecutor(max_workers=LANES - 1, thread_name_prefix="riskfit-lane")
+            _pool = ThreadPoolExecutor(max_workers=LANES - 1, thread_name_prefix=_PREFIX)
         return _pool
 
 
@@ -76,7 +77,8 @@ def run_lanes(tasks: Sequence[Callable[[], None]]) -> None:
     With two threads, lane 1 runs in the worker while lane 0 runs here. An exception is
     re-raised after every lane has stopped, lane 0's first (its rows come first).
     """
-    if len(tasks) == 1 or _threads == 1:
+    nested = threading.current_thread().name.startswith(_PREFIX)  # never wait on ourselves
+    if len(tasks) == 1 or _threads == 1 or nested:
         for task in tasks:
             task()
         return

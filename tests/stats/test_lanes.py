@@ -91,3 +91,15 @@ def test_thread_count_is_validated(threads: None) -> None:
         lanes.set_pass_threads(0)
     lanes.set_pass_threads(8)
     assert lanes.pass_threads() == 2
+
+
+def test_a_lane_that_starts_a_pass_runs_it_inline(threads: None) -> None:
+    # A task on the lane worker that itself calls run_lanes must not wait for that worker.
+    lanes.set_pass_threads(2)
+    seen: list[str] = []
+
+    def inner() -> None:
+        lanes.run_lanes([lambda: seen.append("a"), lambda: seen.append("b")])
+
+    lanes.run_lanes([lambda: None, inner])
+    assert sorted(seen) == ["a", "b"]
