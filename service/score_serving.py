@@ -14,8 +14,10 @@ thread, in a session of its own; so do all errors about models, versions and cha
 Where it runs: a small body (up to :data:`INLINE_MAX_BYTES`, a few records) is scored on the
 event loop and awaits its commit without holding a thread (scoring a few records takes well
 under a millisecond; a thread hop and the GIL hand-over cost more). Bigger bodies are scored in
-one worker-thread hop, so the event loop keeps serving. Either way the answer exists only
-after the score-log rows are committed.
+a worker thread, so the event loop keeps serving; that thread then builds the answer bytes
+while the writer thread inserts the rows, and hands them over only after the commit. Every
+batch, whatever its size, is committed by the writer (big ones form a group of their own or
+share it up to ``MAX_GROUP_ROWS``); the answer exists only after its rows are committed.
 """
 
 from __future__ import annotations
@@ -30,15 +32,8 @@ from models_store.orm import RiskModel
 from service.errors import ConflictError
 from service.schemas.scores import ScoreOptions
 from service.score_input import ScoreInput, columns_input, records_input
-from service.score_writer import (
-    ChampionChangedError,
-    ScoreLogWriter,
-    begin_write,
-    check_champion,
-    writer_of,
-)
+from service.score_writer import ChampionChangedError, ScoreLogWriter, writer_of
 from service.scoring import (
-    GROUP_COMMIT_MAX_ROWS,
     ScoredBatch,
     score_prepared,
     scoring_model,
@@ -71,25 +66,24 @@ def _read_version(state: Any, model: RiskModel, number: int) -> LoadedVersion:
         return cache.get(session, model, number)
 
 
-def _log_and_answer(state: Any, writer: ScoreLogWriter, scored: ScoredBatch) -> dict[str, Any]:
-    """Commit ``scored.rows`` (group commit, or a transaction of their own when big); answer."""
-    rows = scored.rows
-    if len(rows.ids) <= GROUP_COMMIT_MAX_ROWS:
-        writer.write(rows)  # returns once the rows are committed (group commit)
-    else:
-        cache: VersionCache = state.version_cache
-        with state.session_factory() as session:
-            begin_write(session)
-            check_champion(session, rows, cache.champion_seen)
-            rows.insert(session)
-            session.commit()  # durable before the answer exists
-    return scored.answer()
+def _log_and_answer(writer: ScoreLogWriter, scored: ScoredBatch) -> bytes:
+    """Hand the rows to the writer, build the answer while they are inserted, then wait.
+
+    The answer bytes leave this function only once the rows are committed (``result()``
+    raises the request's own error, and then nothing of it was stored).
+    """
+    done = writer.submit(scored.rows)
+    try:
+        body = scored.answer_json()  # the writer thread inserts meanwhile (sqlite3 drops the GIL)
+    finally:
+        done.result()  # durable before the answer exists
+    return body
 
 
 async def serve_scores(
     *, state: Any, name: str, body_bytes: int, parse: Callable[[], ParsedBody]
-) -> dict[str, Any]:
-    """Score the request's records with model ``name``; returns the JSON-ready answer body.
+) -> tuple[int, bytes]:
+    """Score the request's records with model ``name``; returns (records, answer JSON bytes).
 
     ``parse()`` reads the body; it is called after the model is known, so an unknown model
     answers 404 before any complaint about the body. ``body_bytes`` decides where it runs.
@@ -123,8 +117,9 @@ async def serve_scores(
             if body_bytes <= INLINE_MAX_BYTES:
                 scored = score()
                 await asyncio.wrap_future(writer.submit(scored.rows))  # durable before answer
-                return scored.answer()
-            return await run_in_threadpool(lambda: _log_and_answer(state, writer, score()))
+                return len(scored.rows.ids), scored.answer_json()
+            scored = await run_in_threadpool(score)
+            return len(scored.rows.ids), await run_in_threadpool(_log_and_answer, writer, scored)
         except ChampionChangedError as changed:  # nothing was written: score with the new one
             champion = changed.number
     raise ConflictError(

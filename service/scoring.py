@@ -29,8 +29,10 @@ from sqlalchemy.orm import Session
 from models_store.champions import current_champion, model_with_champion
 from models_store.models import model_not_found
 from models_store.orm import RiskModel
+from service.api.responses import dumps
 from service.data_io import coerce_column
 from service.errors import VersionNotFoundError
+from service.score_answer import ITEM_KEYS, answer_json
 from service.score_input import ScoreInput, coerced, columns_input, namer, records_input
 from service.score_log_rows import inputs_json, new_score_ids
 from service.score_writer import ScoreLogWriter, ScoreRows
@@ -101,15 +103,17 @@ def _warnings(
     return out
 
 
-_ITEM_KEYS = ("score_id", "key", "probability", "ci_lower", "ci_upper", "eta", "se_eta", "warnings")
-
-
 @dataclass(frozen=True)
 class ScoredBatch:
-    """A batch scored but not yet logged: ``rows`` to commit, then ``answer()`` to build."""
+    """A batch scored but not yet logged: ``rows`` to commit, then ``answer()`` to build.
+
+    ``answer()`` is the JSON-ready dict; ``answer_json()`` the same body as JSON bytes, built
+    per column (:mod:`service.score_answer`).
+    """
 
     rows: ScoreRows
     answer: Callable[[], dict[str, Any]]
+    answer_json: Callable[[], bytes]
 
 
 def prepare_batch(
@@ -172,18 +176,7 @@ def score_prepared(
         checks_champion,
     )
 
-    def answer() -> dict[str, Any]:
-        warnings = _warnings(n, design.extrapolated, cols, v)
-        keys = batch.keys if batch.keys is not None else [None] * n
-        lo, hi = pred.ci_lower.tolist(), pred.ci_upper.tolist()
-        scores = [
-            dict(zip(_ITEM_KEYS, t, strict=True))
-            for t in zip(ids, keys, p, lo, hi, eta, se, warnings, strict=True)
-        ]
-        if explain:
-            contrib = contributions(design.X, v.coef).tolist()
-            for item, row in zip(scores, contrib, strict=True):
-                item["contributions"] = dict(zip(v.term_names, row, strict=True))
+    def header() -> dict[str, Any]:
         return {
             "model": model.name,
             "version": number,
@@ -191,10 +184,30 @@ def score_prepared(
             "ci_method": CI_METHOD,
             "n_records": n,
             "created_at": created_at,
-            "scores": scores,
         }
 
-    return ScoredBatch(rows, answer)
+    def answer() -> dict[str, Any]:
+        warnings = _warnings(n, design.extrapolated, cols, v)
+        keys = batch.keys if batch.keys is not None else [None] * n
+        lo, hi = pred.ci_lower.tolist(), pred.ci_upper.tolist()
+        scores = [
+            dict(zip(ITEM_KEYS, t, strict=True))
+            for t in zip(ids, keys, p, lo, hi, eta, se, warnings, strict=True)
+        ]
+        if explain:
+            contrib = contributions(design.X, v.coef).tolist()
+            for item, row in zip(scores, contrib, strict=True):
+                item["contributions"] = dict(zip(v.term_names, row, strict=True))
+        return {**header(), "scores": scores}
+
+    def answer_bytes() -> bytes:
+        if explain:  # per-record contribution objects: the dict form
+            return dumps(answer())
+        warnings = _warnings(n, design.extrapolated, cols, v)
+        numbers = (pred.probability, pred.ci_lower, pred.ci_upper, pred.eta, pred.se_eta)
+        return answer_json(header(), ids, batch.keys, numbers, warnings)
+
+    return ScoredBatch(rows, answer, answer_bytes)
 
 
 def score_batch(

@@ -15,12 +15,11 @@ import json
 from typing import Any, NoReturn
 
 import orjson
-from fastapi import APIRouter, Request
+from fastapi import APIRouter, Request, Response
 from fastapi.exceptions import RequestValidationError
 from pydantic import ValidationError
 
 from service.api.deps import ModelName, ScorerAccess
-from service.api.responses import JSONBytes
 from service.errors import DataError
 from service.limits import JSON_SCOPE_KEY
 from service.schemas import ErrorResponse, ScoreBatchPublic, ScoreCreate
@@ -122,12 +121,12 @@ def _invalid(loc: tuple[str | int, ...], message: str, value: Any) -> NoReturn:
         }
     },
 )
-async def post_scores(model: ModelName, request: Request, _: ScorerAccess) -> JSONBytes:
+async def post_scores(model: ModelName, request: Request, _: ScorerAccess) -> Response:
     raw = await request.body()
     parsed = request.scope.pop(JSON_SCOPE_KEY, _UNPARSED)
     state = request.app.state
-    answer = await serve_scores(
+    n, body = await serve_scores(
         state=state, name=model, body_bytes=len(raw), parse=lambda: _parse(raw, parsed)
     )
-    state.metrics.records_scored.labels(model).inc(answer["n_records"])
-    return JSONBytes(answer)
+    state.metrics.records_scored.labels(model).inc(n)
+    return Response(content=body, media_type="application/json")  # JSON built per column
