@@ -22,12 +22,14 @@ from typing import Any, ClassVar
 
 from sqlalchemy import (
     JSON,
+    BigInteger,
     CheckConstraint,
     Float,
     ForeignKey,
     ForeignKeyConstraint,
     Index,
     Integer,
+    LargeBinary,
     MetaData,
     SmallInteger,
     String,
@@ -294,6 +296,27 @@ class CusumLimitRecord(Base):
     h: Mapped[float] = mapped_column(Float)
     depends_on: Mapped[dict[str, Any]] = mapped_column(default=dict)
     control_limit: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class OutcomeColumnBlock(Base):
+    """A packed copy of one model's outcome rows with ``after_id < id <= last_id`` (all of
+    them when written), so a new process loads its outcome snapshot in one read instead of
+    building it row by row. ``data`` holds the columns one after another (layout named in
+    ``layout``); outcome rows never change, so a block is written once, and deleted only when
+    a check finds it incomplete (see service/monitoring/outcome_blocks.py)."""
+
+    __tablename__ = "outcome_column_block"
+    __table_args__ = (UniqueConstraint("model_id", "after_id"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    model_id: Mapped[int] = mapped_column(ForeignKey("risk_model.id"))
+    after_id: Mapped[int] = mapped_column(BigInteger)
+    last_id: Mapped[int] = mapped_column(BigInteger)
+    n_rows: Mapped[int] = mapped_column(Integer)
+    latest_received_at: Mapped[datetime]
+    layout: Mapped[str] = mapped_column(String(200))
+    data: Mapped[bytes] = mapped_column(LargeBinary)
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
 
 

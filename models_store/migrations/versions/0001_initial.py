@@ -268,8 +268,31 @@ def upgrade() -> None:
         ),
     )
 
+    op.create_table(
+        "outcome_column_block",
+        sa.Column("id", sa.Integer(), nullable=False),
+        sa.Column("model_id", sa.Integer(), nullable=False),
+        sa.Column("after_id", sa.BigInteger(), nullable=False),
+        sa.Column("last_id", sa.BigInteger(), nullable=False),
+        sa.Column("n_rows", sa.Integer(), nullable=False),
+        sa.Column("latest_received_at", UTC_TIMESTAMP, nullable=False),
+        sa.Column("layout", sa.String(length=200), nullable=False),
+        sa.Column("data", sa.LargeBinary(), nullable=False),
+        sa.Column("created_at", UTC_TIMESTAMP, nullable=False),
+        sa.ForeignKeyConstraint(
+            ["model_id"],
+            ["risk_model.id"],
+            name=op.f("fk_outcome_column_block_model_id_risk_model"),
+        ),
+        sa.PrimaryKeyConstraint("id", name=op.f("pk_outcome_column_block")),
+        sa.UniqueConstraint(
+            "model_id", "after_id", name=op.f("uq_outcome_column_block_model_id_after_id")
+        ),
+    )
+
 
 def downgrade() -> None:
+    op.drop_table("outcome_column_block")
     op.drop_table("cusum_limit")
     op.drop_index(op.f("ix_outcome_model_id_observed_at"), table_name="outcome")
     op.drop_index(op.f("ix_outcome_model_id_scored_at"), table_name="outcome")
