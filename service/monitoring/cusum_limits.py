@@ -14,8 +14,10 @@ values form :func:`limit_key`; its SHA-256 (sorted-key JSON) names the limit:
    with the drift evaluation) and remembered. Two writers of one key: the first row stands
    and the second reads it back, so every worker uses the same h.
 
-Within a size class the first simulation stands (the reference is the segment's prefix at
-that time; the row records how many reference records it used and their mean risk).
+No lock of this process is held while the store may wait for its write lock (a thread that
+holds the store's write lock may be waiting for one of them). Within a size class the first
+simulation stands (the reference is the segment's prefix at that time; the row records how
+many reference records it used and their mean risk).
 """
 
 from __future__ import annotations
@@ -126,10 +128,15 @@ class LimitCache:
             if hit is not None:
                 return hit
             limit = self._stored(session, model, digest)
+            simulated = limit is None
             if limit is None:
                 limit = self._simulate(key, p_reference)
-                limit = self._store(session, model, digest, key, limit, p_reference)
             self._remember(digest, limit)
+        if simulated:  # outside the lock: the insert may wait for the store's write lock
+            stored = self._store(session, model, digest, key, limit, p_reference)
+            if stored != limit:
+                self._remember(digest, stored)
+            limit = stored
         return limit
 
     def _stored(
