@@ -23,6 +23,10 @@ is updated or deleted), so a snapshot is always a subset of the committed rows. 
 5. if it still holds fewer than ``n_store`` rows (a transaction slower than the overlap),
    the model is read again in full.
 
+A snapshot's first use in a process starts from the model's packed column blocks in the
+store when there are any (:mod:`.outcome_blocks`: one binary read instead of a row-by-row
+one), then follows the same steps; a block only ever holds committed rows, so the rule holds.
+
 So every answer includes at least every outcome committed before its count was taken, never
 counts an outcome twice, and never shows one that was not committed. Snapshots are per
 process (each server worker has its own) and bounded to :data:`MAX_MODELS` models, least
@@ -46,6 +50,7 @@ from sqlalchemy.orm import Session
 from models_store.columns import epoch_micros
 from models_store.orm import Outcome, RiskModel
 from models_store.scores import ScoreColumns
+from service.monitoring import outcome_blocks
 
 __all__ = ["MAX_MODELS", "OVERLAP", "OutcomeSnapshots", "Snapshot"]
 
@@ -179,13 +184,17 @@ def _count(session: Session, model: RiskModel) -> int:
 class OutcomeSnapshots:
     """Per-model snapshots (see module docstring); thread-safe, one refresh at a time per model."""
 
-    def __init__(self, max_models: int = MAX_MODELS, overlap: timedelta = OVERLAP) -> None:
+    def __init__(
+        self, max_models: int = MAX_MODELS, overlap: timedelta = OVERLAP, use_blocks: bool = True
+    ) -> None:
         self.max_models = max_models
         self.overlap = overlap
+        self.use_blocks = use_blocks  # start from the stored column blocks (.outcome_blocks)
         self._items: OrderedDict[int, Snapshot] = OrderedDict()
         self._locks: dict[int, threading.Lock] = {}
         self._lock = threading.Lock()
         self.full_reads = 0  # for tests and benchmarks: how often a model was read in full
+        self.block_loads = 0  # how often a snapshot started from stored blocks
 
     def _model_lock(self, model_id: int) -> threading.Lock:
         with self._lock:
@@ -197,6 +206,11 @@ class OutcomeSnapshots:
             n_store = _count(session, model)
             with self._lock:
                 snap = self._items.get(model.id)
+            if snap is None and self.use_blocks and n_store:
+                stored = outcome_blocks.load(session, model)
+                if stored is not None:
+                    self.block_loads += 1
+                    snap = _snapshot(*stored)
             if snap is not None and snap.n < n_store:
                 snap = self._extend(session, model, snap, n_store)
             if snap is None or snap.n < n_store:

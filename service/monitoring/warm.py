@@ -6,8 +6,10 @@ outcomes (:mod:`.snapshot`) and, for a new segment, the CUSUM limit simulation
 starts, for the models with the most recent outcomes (at most the snapshot's capacity):
 
     models by latest outcome id (newest first)
-    -> per model: snapshot (full read), champion segment, both charts' limits (stored ones
-       are loaded, missing ones simulated and stored), commit
+    -> per model: snapshot (from the stored column blocks and the rows after them, or a
+       full read), new column blocks sealed (:mod:`.outcome_blocks`), committed;
+       champion segment, both charts' limits (stored ones loaded, missing ones simulated
+       and stored), committed
 
 Readiness does not wait for it: ``/readyz`` answers as soon as the database does. A
 monitoring request that arrives while its model is being warmed waits on that model's
@@ -30,6 +32,7 @@ from sqlalchemy.orm import Session
 
 from models_store.orm import Outcome, RiskModel
 from service.config import Settings
+from service.monitoring import outcome_blocks
 from service.monitoring.cusum_limits import LimitCache, limit_key
 from service.monitoring.cusum_monitor import cusum_segment
 from service.monitoring.snapshot import OutcomeSnapshots
@@ -62,6 +65,9 @@ def _warm_model(
     settings: Settings,
 ) -> None:
     snap = snapshots.get(session, model)
+    if snapshots.use_blocks:
+        outcome_blocks.seal(session, model, snap.cols, overlap=snapshots.overlap)
+        session.commit()
     version, reset_at, _ = cusum_segment(session, model, None)
     if version is None:
         return
