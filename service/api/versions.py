@@ -18,7 +18,6 @@ from fastapi.exceptions import RequestValidationError
 from pydantic import ValidationError
 from starlette.concurrency import run_in_threadpool
 from starlette.datastructures import UploadFile
-from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from models_store.champions import current_champion
 from models_store.orm import ModelVersion, RiskModel
@@ -31,6 +30,7 @@ from service.api.deps import (
     SessionDep,
     SettingsDep,
 )
+from service.api.uploads import read_multipart
 from service.data_io import columns_from_rows, read_table, table_columns, training_data
 from service.errors import DataError
 from service.fitting import fit_version, needed_columns
@@ -75,16 +75,7 @@ async def _parse_fit_request(request: Request) -> tuple[VersionSpec, dict[str, A
     """Spec and raw columns from a JSON or multipart body, and the data layout."""
     content_type = request.headers.get("content-type", "")
     if content_type.startswith("multipart/form-data"):
-        try:
-            form = await request.form()
-        except StarletteHTTPException as exc:  # malformed multipart: the client's input
-            raise DataError(
-                f"the multipart body cannot be read ({exc.detail})",
-                field="body",
-                value=content_type,
-                remedy="send a well-formed multipart/form-data body with a boundary, "
-                "e.g. curl -F spec=@spec.json -F data=@segments.csv",
-            ) from exc
+        form = await read_multipart(request)
         try:
             spec_part, data_part = form.get("spec"), form.get("data")
             if spec_part is None or not isinstance(data_part, UploadFile):

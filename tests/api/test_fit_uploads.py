@@ -112,3 +112,17 @@ def test_an_empty_categorical_cell_in_parquet_is_named(api: ApiClient) -> None:
     r = _upload(api, "m", _parquet(pa.table(cols)), "parquet")
     assert r.status_code == 422, r.text
     assert r.json()["error"]["field"] == "data.columns.soil[17]"
+
+
+def test_an_upload_spooled_to_disk_fits_as_one_kept_in_memory(
+    api: ApiClient, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from service.api import uploads
+
+    content = _csv(pa.table(segments(700, seed=25)))
+    kept = _upload(api, "memory", content, "csv")
+    monkeypatch.setattr(uploads._InMemoryParts, "spool_max_size", 1024)  # roll after 1 KiB
+    spooled = _upload(api, "disk", content, "csv")
+    assert kept.status_code == spooled.status_code == 201, spooled.text
+    assert spooled.json()["term_table"] == kept.json()["term_table"]
+    assert spooled.json()["data_fingerprint"] == kept.json()["data_fingerprint"]
