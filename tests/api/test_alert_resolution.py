@@ -100,3 +100,13 @@ def test_the_route_is_documented_with_its_refusals(api: ApiClient) -> None:
     assert {"200", "404", "409", "422"} <= set(op["responses"])
     assert "modeler" in op["description"] and "alert.resolve" in op["description"]
     assert any(p["name"] == "alert_id" and p["in"] == "path" for p in op["parameters"])
+
+
+def test_the_dashboard_counts_resolved_alerts(api: ApiClient) -> None:
+    assert api.post("/risk-models/pipes/versions", json=fit_body()).status_code == 201
+    first, _ = _alerts(api, "pipes", ("calibration_in_the_large", "observed_expected"))
+    assert "resolved-alert-count" not in api.get("/dashboard/pipes").text
+    resolved = api.post(_url("pipes", first)).json()["resolved_at"]
+    html = api.get("/dashboard/pipes").text
+    assert 'id="open-alert-count">1 open alert<' in html
+    assert f"1 resolved alert, the latest resolved {resolved[:10]} {resolved[11:16]} UTC" in html
