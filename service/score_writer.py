@@ -156,7 +156,7 @@ class ScoreLogWriter:
         self._queue: queue.SimpleQueue[_Job | None] = queue.SimpleQueue()
         self._thread = threading.Thread(target=self._run, name="riskfit-score-log", daemon=True)
         self._thread.start()
-        self.groups = 0  # commits made (for tests and metrics)
+        self.groups = 0  # commits made (for tests and metrics); all-refused groups make none
 
     def submit(self, rows: ScoreRows) -> Future[None]:
         """Queue ``rows``; the future is done once they are committed (or holds the error)."""
@@ -211,14 +211,19 @@ class ScoreLogWriter:
                         raise  # the store itself failed: the whole group
                     except (RiskfitError, ChampionChangedError) as error:
                         own_errors[i] = error
-                session.commit()
+                if len(own_errors) == len(group):
+                    session.rollback()  # every request refused: nothing to make durable
+                    committed = False
+                else:
+                    session.commit()
+                    committed = True
         except BaseException as error:  # the group is rolled back: nothing of it was stored
             for _, done in group:
                 done.set_exception(error)
             if not isinstance(error, Exception):
                 raise
             return
-        self.groups += 1
+        self.groups += committed
         for i, (_, done) in enumerate(group):
             if i in own_errors:
                 done.set_exception(own_errors[i])
