@@ -129,10 +129,13 @@ def _raw_sqlite(tmp: str, ids: list[str]) -> None:
     con = sqlite3.connect(f"{tmp}/raw.db", isolation_level=None)
     con.execute("PRAGMA journal_mode=WAL")
     con.execute("PRAGMA synchronous=FULL")
-    con.execute(
+    con.execute(  # the score table's layout (models_store.orm.Score)
         "CREATE TABLE IF NOT EXISTS score (id VARCHAR(36) PRIMARY KEY, model_id INT,"
         " version_number INT, key VARCHAR(100), inputs JSON, eta FLOAT, se_eta FLOAT,"
-        " probability FLOAT, created_at DATETIME, UNIQUE (model_id, key))"
+        " probability FLOAT, created_at DATETIME) WITHOUT ROWID"
+    )
+    con.execute(
+        "CREATE UNIQUE INDEX IF NOT EXISTS uq_score ON score (model_id, key) WHERE key IS NOT NULL"
     )
     con.execute("CREATE INDEX IF NOT EXISTS ix_score_at ON score (model_id, created_at)")
     inputs = '{"age_years":85.0,"diameter_mm":150,"material":"cast iron","soil":"high"}'
