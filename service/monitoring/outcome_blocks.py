@@ -129,8 +129,10 @@ def seal(
     ):
         delete_outcome_blocks(session=session, model=model)
         last = 0
-    upto = latest_id_received_before(session=session, model=model, before=utcnow() - overlap)
     ids = cols["id"]
+    if np.count_nonzero(ids > last) < max(1, min_rows):  # too few new rows: skip the scan
+        return 0
+    upto = latest_id_received_before(session=session, model=model, before=utcnow() - overlap)
     rows = np.flatnonzero((ids > last) & (ids <= upto))
     stored = count_outcomes_between(session=session, model=model, after_id=last, last_id=upto)
     if rows.size < max(1, min_rows) or rows.size != stored:
