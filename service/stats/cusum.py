@@ -170,14 +170,21 @@ def cusum(
 def _running_max_paths(
     p_reference: FloatArray, R: float, n_sims: int, length: int, seed: int, chunk: int = 200
 ) -> np.ndarray:
-    """(n_sims, length) float32 running maxima of in-control CUSUM paths."""
+    """(n_sims, length) float32 running maxima of in-control CUSUM paths.
+
+    W is gathered per drawn reference risk (``-log(1 + (R - 1) p_j)`` computed once per
+    reference record, ``log R`` added where y = 1): the same values, bit for bit, as
+    evaluating the score per simulated record, without a logarithm per record.
+    """
     rng = np.random.default_rng(seed)
     out = np.empty((n_sims, length), dtype=np.float32)
+    w0 = -np.log1p((R - 1.0) * p_reference)  # (m,) W when y = 0
+    log_r = np.log(R)
     for i in range(0, n_sims, chunk):  # loop over blocks of simulated streams
         k = min(chunk, n_sims - i)
-        pp = p_reference[rng.integers(0, p_reference.shape[0], size=(k, length))]
-        yy = rng.random((k, length)) < pp
-        w = np.where(yy, np.log(R), 0.0) - np.log1p((R - 1.0) * pp)
+        j = rng.integers(0, p_reference.shape[0], size=(k, length))
+        yy = rng.random((k, length)) < p_reference[j]
+        w = w0[j] + np.where(yy, log_r, 0.0)
         out[i : i + k] = np.maximum.accumulate(_lindley(w), axis=1)
     return out
 
