@@ -4,9 +4,9 @@
 * ``GET /risk-models/{model}/drift`` (+ ``/drift/measures.{svg|png}``, ``/drift/psi.{svg|png}``)
 * ``GET /risk-models/{model}/alerts``, ``POST /risk-models/{model}/alerts/{alert_id}/resolution``
 
-The router's lifespan starts :class:`service.monitoring.warm.Warmer` when the app starts
-(outcome snapshots and CUSUM limits built in the background; ``/readyz`` does not wait) and
-stops it at shutdown.
+The router's lifespan lists the models with outcomes when the app starts and, if there are
+any, starts :class:`service.monitoring.warm.Warmer` (outcome snapshots and CUSUM limits built
+in the background; ``/readyz`` does not wait for it); it stops it at shutdown.
 """
 
 from __future__ import annotations
@@ -39,7 +39,7 @@ from service.monitoring import (
 from service.monitoring.alert_resolution import resolve_model_alert
 from service.monitoring.thresholds import THRESHOLD_FIELDS as ALERT_THRESHOLDS
 from service.monitoring.thresholds import for_model
-from service.monitoring.warm import Warmer
+from service.monitoring.warm import Warmer, recent_model_ids
 from service.plots import PlotFormat, drift_figure, psi_figure, reliability_figure, render
 from service.schemas import ErrorResponse
 from service.schemas.monitoring import AlertList, AlertPublic, CalibrationReportPublic, DriftPublic
@@ -124,13 +124,13 @@ def outcome_snapshots(request: Request) -> OutcomeSnapshots:
 
 @asynccontextmanager
 async def warm_at_start(app: FastAPI) -> AsyncIterator[None]:
-    """Warm the monitoring state in the background while the app serves (see module doc)."""
-    warmer = Warmer(
-        app.state.session_factory,
-        _app_state(app, "outcome_snapshots", OutcomeSnapshots),
-        _app_state(app, "cusum_limits", LimitCache),
-        app.state.settings,
-    )
+    """Warm the monitoring state in the background while the app serves (see module doc):
+    one query for the models with outcomes, then a thread only if there are any."""
+    snapshots = _app_state(app, "outcome_snapshots", OutcomeSnapshots)
+    factory = app.state.session_factory
+    ids = await run_in_threadpool(recent_model_ids, factory, snapshots.max_models)
+    cache = _app_state(app, "cusum_limits", LimitCache)
+    warmer = Warmer(factory, snapshots, cache, app.state.settings, model_ids=ids)
     app.state.monitoring_warm = warmer.start()
     try:
         yield

@@ -11,7 +11,9 @@ starts, for the models with the most recent outcomes (at most the snapshot's cap
        champion segment, both charts' limits (stored ones loaded, missing ones simulated
        and stored), committed
 
-Readiness does not wait for it: ``/readyz`` answers as soon as the database does. A
+Start-up itself runs one query, the models with outcomes (:func:`recent_model_ids`, an
+index scan: about 0.1 s per million outcomes), and starts the thread only if there are any.
+Readiness does not wait for the thread: ``/readyz`` answers as soon as the database does. A
 monitoring request that arrives while its model is being warmed waits on that model's
 snapshot lock and then uses the warmed columns, so it never costs more than without warming.
 Warming stores no alerts (only a drift evaluation does). A failure is logged and leaves the
@@ -37,7 +39,7 @@ from service.monitoring.cusum_limits import LimitCache, limit_key
 from service.monitoring.cusum_monitor import cusum_segment
 from service.monitoring.snapshot import OutcomeSnapshots
 
-__all__ = ["WarmState", "Warmer", "warm_models"]
+__all__ = ["WarmState", "Warmer", "recent_model_ids", "warm_models"]
 
 log = logging.getLogger("riskfit.monitoring")
 
@@ -51,10 +53,12 @@ class WarmState:
     error: str | None = None
 
 
-def _recent_model_ids(session: Session, limit: int) -> list[int]:
+def recent_model_ids(session_factory: Callable[[], Session], limit: int) -> list[int]:
+    """Ids of the models with outcomes, the latest outcome first, at most ``limit``."""
     latest = func.max(Outcome.id)
     stmt = select(Outcome.model_id).group_by(Outcome.model_id).order_by(latest.desc()).limit(limit)
-    return [int(m) for m in session.scalars(stmt)]
+    with session_factory() as session:
+        return [int(m) for m in session.scalars(stmt)]
 
 
 def _warm_model(
@@ -93,15 +97,17 @@ def warm_models(
     cache: LimitCache,
     settings: Settings,
     *,
+    model_ids: list[int] | None = None,
     stop: threading.Event | None = None,
     state: WarmState | None = None,
 ) -> WarmState:
-    """Warm the most recently active models in turn (see module docstring)."""
+    """Warm ``model_ids`` (default: :func:`recent_model_ids`) in turn (see module docstring)."""
     state = state or WarmState()
     t0 = time.perf_counter()
     try:
-        with session_factory() as session:
-            ids = _recent_model_ids(session, snapshots.max_models)
+        ids = model_ids
+        if ids is None:
+            ids = recent_model_ids(session_factory, snapshots.max_models)
         for model_id in ids:  # at most the snapshot's capacity: nothing warmed is evicted
             if stop is not None and stop.is_set():
                 break
@@ -118,7 +124,10 @@ def warm_models(
 
 
 class Warmer:
-    """One background thread running :func:`warm_models`; :meth:`stop` ends and joins it."""
+    """One background thread running :func:`warm_models`; :meth:`stop` ends and joins it.
+
+    ``model_ids`` given and empty: nothing to warm, no thread is started.
+    """
 
     def __init__(
         self,
@@ -126,26 +135,34 @@ class Warmer:
         snapshots: OutcomeSnapshots,
         cache: LimitCache,
         settings: Settings,
+        model_ids: list[int] | None = None,
     ) -> None:
         self.state = WarmState()
         self._stop = threading.Event()
+        self._idle = model_ids is not None and not model_ids
         self._thread = threading.Thread(
             target=warm_models,
             args=(session_factory, snapshots, cache, settings),
-            kwargs={"stop": self._stop, "state": self.state},
+            kwargs={"model_ids": model_ids, "stop": self._stop, "state": self.state},
             name="riskfit-monitoring-warm",
             daemon=True,
         )
 
     def start(self) -> Warmer:
-        self._thread.start()
+        if self._idle:
+            self.state.seconds = 0.0
+        else:
+            self._thread.start()
         return self
 
     def wait(self, timeout: float | None = None) -> bool:
         """True once warming has finished (within ``timeout`` seconds)."""
+        if self._idle:
+            return True
         self._thread.join(timeout)
         return not self._thread.is_alive()
 
     def stop(self, timeout: float = 60.0) -> None:
         self._stop.set()
-        self._thread.join(timeout)
+        if not self._idle:
+            self._thread.join(timeout)
