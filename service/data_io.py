@@ -168,9 +168,10 @@ def _coerce_arrow(name: str, kind: str, arr: Any, where: FieldNamer) -> np.ndarr
         if not (pa.types.is_integer(typ) or pa.types.is_floating(typ)):
             values = arr.to_pylist()
             _raise_first_non_number(name, values, where)
-        return coerce_column(
-            name, kind, arr.to_numpy(zero_copy_only=False).astype(np.float64), where
-        )
+        values = arr.to_numpy(zero_copy_only=False)  # a read-only view of one float64 chunk
+        if values.dtype != np.float64 or not values.flags.writeable:
+            values = values.astype(np.float64)  # copied once (several chunks: already a copy)
+        return coerce_column(name, kind, values, where)
     if pa.types.is_string(typ) or pa.types.is_large_string(typ):
         return np.asarray(arr.to_numpy(zero_copy_only=False), dtype=object)
     return coerce_column(name, kind, arr.to_pylist(), where)
