@@ -22,7 +22,6 @@ share it up to ``MAX_GROUP_ROWS``); the answer exists only after its rows are co
 
 from __future__ import annotations
 
-import asyncio
 from collections.abc import Callable
 from typing import Any
 
@@ -116,7 +115,7 @@ async def serve_scores(
         try:
             if body_bytes <= INLINE_MAX_BYTES:
                 scored = score()
-                await asyncio.wrap_future(writer.submit(scored.rows))  # durable before answer
+                await writer.submit_async(scored.rows)  # durable before the answer
                 return len(scored.rows.ids), scored.answer_json()
             scored = await run_in_threadpool(score)
             return len(scored.rows.ids), await run_in_threadpool(_log_and_answer, writer, scored)

@@ -1,8 +1,9 @@
 """Group commit for the score log: many small scoring requests, one transaction, one fsync.
 
 A request hands its rows to :meth:`ScoreLogWriter.write`, which blocks until they are committed
-(or raises the request's own error), or to :meth:`ScoreLogWriter.submit`, whose future an event
-loop can await (``asyncio.wrap_future``) without holding a thread. One writer thread takes
+(or raises the request's own error), to :meth:`ScoreLogWriter.submit` (a future to wait on), or
+from a coroutine to :meth:`ScoreLogWriter.submit_async`, awaited without holding a thread (the
+writer wakes each event loop once per group, not once per request). One writer thread takes
 every request waiting at that moment, inserts each in a SAVEPOINT of one transaction and
 commits once, then wakes the requests. No request returns before its rows are durable, exactly
 as with its own commit; what is shared is the fsync and the write lock. Batches form by
@@ -24,9 +25,11 @@ without serving a stale one.
 
 from __future__ import annotations
 
+import asyncio
+import contextlib
 import queue
 import threading
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import Future
 from dataclasses import dataclass
 from datetime import datetime
@@ -126,8 +129,26 @@ def begin_write(session: Session) -> None:
     session.connection(execution_options=_WRITE_TXN)
 
 
-_Job = tuple[ScoreRows, "Future[None]"]
+@dataclass(frozen=True)
+class _LoopWaiter:
+    """An event loop's future, settled from the writer thread in one call per loop and group."""
+
+    loop: asyncio.AbstractEventLoop
+    future: asyncio.Future[None]
+
+
+_Job = tuple[ScoreRows, "Future[None] | _LoopWaiter"]
 _LOCK = threading.Lock()
+
+
+def _settle_on_loop(outcomes: list[tuple[asyncio.Future[None], BaseException | None]]) -> None:
+    for future, error in outcomes:
+        if future.cancelled():
+            continue  # the request went away; its rows are committed (or not) all the same
+        if error is None:
+            future.set_result(None)
+        else:
+            future.set_exception(error)
 
 
 def writer_of(state: Any) -> ScoreLogWriter:
@@ -163,6 +184,17 @@ class ScoreLogWriter:
         done: Future[None] = Future()
         self._queue.put((rows, done))
         return done
+
+    def submit_async(self, rows: ScoreRows) -> asyncio.Future[None]:
+        """:meth:`submit` for a coroutine: a future of the running loop, awaited directly.
+
+        The writer wakes each loop once per group (one ``call_soon_threadsafe`` settles all of
+        that loop's requests in the group) instead of once per request.
+        """
+        loop = asyncio.get_running_loop()
+        future: asyncio.Future[None] = loop.create_future()
+        self._queue.put((rows, _LoopWaiter(loop, future)))
+        return future
 
     def write(self, rows: ScoreRows) -> None:
         """Queue ``rows`` and wait until they are committed; raises the request's error."""
@@ -218,14 +250,25 @@ class ScoreLogWriter:
                     session.commit()
                     committed = True
         except BaseException as error:  # the group is rolled back: nothing of it was stored
-            for _, done in group:
-                done.set_exception(error)
+            _settle(group, dict.fromkeys(range(len(group)), error))
             if not isinstance(error, Exception):
                 raise
             return
         self.groups += committed
-        for i, (_, done) in enumerate(group):
-            if i in own_errors:
-                done.set_exception(own_errors[i])
-            else:
-                done.set_result(None)
+        _settle(group, own_errors)
+
+
+def _settle(group: list[_Job], errors: Mapping[int, BaseException]) -> None:
+    """Finish every job's future: its error, or done (committed)."""
+    on_loops: dict[asyncio.AbstractEventLoop, list[tuple[asyncio.Future[None], Any]]] = {}
+    for i, (_, done) in enumerate(group):
+        error = errors.get(i)
+        if isinstance(done, _LoopWaiter):
+            on_loops.setdefault(done.loop, []).append((done.future, error))
+        elif error is None:
+            done.set_result(None)
+        else:
+            done.set_exception(error)
+    for loop, outcomes in on_loops.items():
+        with contextlib.suppress(RuntimeError):  # a closed loop: nobody waits any more
+            loop.call_soon_threadsafe(_settle_on_loop, outcomes)
