@@ -3,7 +3,8 @@
 * ``auc``: the c-statistic, the probability that a random event has a higher
   prediction than a random non-event, ties counting 1/2 (the Mann-Whitney form;
   Hanley & McNeil 1982, *Radiology* 143:29-36). With weights, pairs are weighted
-  by ``w_i * w_j``. Computed in O(n log n) from sorted unique predictions.
+  by ``w_i * w_j``. Computed in O(n log n): events and non-events sorted apart, each
+  event placed among the non-events by binary search (weight below it, half of ties).
 * ``brier``: ``sum w (p - y)^2 / sum w`` (Brier 1950).
 * ``log_loss``: ``-sum w (y log p + (1 - y) log(1 - p)) / sum w`` with p clipped to
   [1e-15, 1 - 1e-15] (common practice).
@@ -63,11 +64,26 @@ def auc(y: np.ndarray, p: np.ndarray, weights: np.ndarray | None = None) -> floa
             value=f"{w_pos.sum():g} events, {w_neg.sum():g} non-events",
             remedy="evaluate on data with both outcomes",
         )
-    values, inverse = np.unique(p_arr, return_inverse=True)
-    pos = np.bincount(inverse, weights=w_pos, minlength=values.size)
-    neg = np.bincount(inverse, weights=w_neg, minlength=values.size)
-    neg_below = np.cumsum(neg) - neg
-    return float((pos * (neg_below + 0.5 * neg)).sum() / (pos.sum() * neg.sum()))
+    # For each event: the weight of non-events predicted lower, plus half of those tied.
+    is_pos = y_arr == 1
+    unweighted = weights is None
+    pp, wp = _sorted(p_arr[is_pos], None if unweighted else w[is_pos])
+    pn, wn = _sorted(p_arr[~is_pos], None if unweighted else w[~is_pos])
+    lo = np.searchsorted(pn, pp, side="left")
+    hi = np.searchsorted(pn, pp, side="right")
+    if wp is None or wn is None:
+        return float((lo.sum() + 0.5 * (hi - lo).sum()) / (pp.size * pn.size))
+    below = np.concatenate(([0.0], np.cumsum(wn)))  # below[k]: weight of the k lowest
+    wins = below[lo] + 0.5 * (below[hi] - below[lo])
+    return float((wp * wins).sum() / (wp.sum() * wn.sum()))
+
+
+def _sorted(values: np.ndarray, weights: np.ndarray | None) -> tuple[np.ndarray, np.ndarray | None]:
+    """``values`` in ascending order, with ``weights`` (if any) in the same order."""
+    if weights is None:
+        return np.sort(values), None
+    order = np.argsort(values)
+    return values[order], weights[order]
 
 
 def brier(y: np.ndarray, p: np.ndarray, weights: np.ndarray | None = None) -> float:
