@@ -4,6 +4,10 @@
     -> term_table (Wald, or profile likelihood) -> drop-term LR tests
     -> reference distributions + training ranges -> data fingerprint -> store
 
+The reference distributions, training ranges and fingerprint depend on the data only, so they
+are computed in a helper thread while the fit and its inference run (numpy's sorts, partitions
+and hashlib release the GIL); their errors are raised after the fit's own.
+
 Nothing is written unless every step succeeds; the first version of a model becomes its
 champion with the reason ``"first version"``. The steps live in their own modules:
 request checks (:mod:`service.fit_checks`), the stored summaries (:mod:`service.fit_summaries`),
@@ -14,6 +18,8 @@ their public names stay importable from here.
 from __future__ import annotations
 
 import time
+from concurrent.futures import ThreadPoolExecutor
+from typing import Any
 
 import numpy as np
 from sqlalchemy.orm import Session
@@ -57,6 +63,17 @@ __all__ = [
 ]
 
 
+_DATA_SUMMARIES = ThreadPoolExecutor(max_workers=2, thread_name_prefix="riskfit-fit-data")
+
+
+def _data_summaries(
+    spec: VersionSpec, data: TrainingData
+) -> tuple[dict[str, Any], dict[str, Any], str]:
+    refs, ranges = reference_distributions_and_ranges(spec, data.columns, data.coded)
+    options = spec.options
+    return refs, ranges, data_fingerprint(data, spec.outcome, options.weights, options.offset)
+
+
 def fit_version(
     *,
     session: Session,
@@ -84,6 +101,7 @@ def fit_version(
     encoding = learn_encoding(features, columns, interactions=spec.interactions)
     X = design_matrix(encoding, columns).X
     times.lap("encode")
+    data_summaries = _DATA_SUMMARIES.submit(_data_summaries, spec, data)
     try:
         fit = fit_logistic(
             X,
@@ -112,8 +130,7 @@ def fit_version(
     fit_stats = fit_statistics_dict(fit, data.y, p, data.weights)
     fit_stats["drop_term_tests"] = drop_term_dicts(drops)
     fit_stats["fit_seconds"] = time.perf_counter() - started
-    refs, ranges = reference_distributions_and_ranges(spec, data.columns, data.coded)
-    fingerprint = data_fingerprint(data, spec.outcome, options.weights, options.offset)
+    refs, ranges, fingerprint = data_summaries.result()
     times.lap("summaries")
     stored = store_version(
         session=session,
