@@ -76,6 +76,7 @@ def hat_score_adjustment(
     for block in blocks():
         parts = lane_slices(block.X.shape[0], CHUNK_ROWS)
         run_lanes(
-            [partial(lanes[k].add, rows(block, sl), coef, linv_t) for k, sl in enumerate(parts)]
+            [partial(lanes[k].add, rows(block, sl), coef, linv_t) for k, sl in enumerate(parts)],
+            n_terms=p,
         )
     return lanes[0].adj + lanes[1].adj, lanes[0].trace + lanes[1].trace

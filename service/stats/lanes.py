@@ -7,6 +7,12 @@ takes the ``k``-th row range that :func:`lane_slices` gives for a block, and the
 in lane order at the end. The result is therefore the same bit for bit whether one thread or two
 do the work, and however the operating system schedules them.
 
+A second thread only pays off when each chunk's BLAS work is large: with few terms a pass is
+many small numpy calls, and the GIL hand-offs between them cost more than the second core
+gives (measured on 1,000,000 rows: 9 terms 41 ms on one thread, 56 ms on two; 21 terms 71 vs
+81 ms; 41 terms 152 vs 107 ms; 200,000 x 101 terms 115 vs 76 ms). Passes therefore ask for two
+threads only from :data:`PARALLEL_MIN_TERMS` terms on; the lanes, and so the sums, stay the same.
+
 The work of lane 0 runs in the calling thread and that of lane 1 in one shared worker thread
 (created on first use, re-created after ``fork``). Several passes running at once (a server
 fitting two models) share that worker; each caller waits only for its own lane.
@@ -19,9 +25,17 @@ import threading
 from collections.abc import Callable, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 
-__all__ = ["LANES", "lane_slices", "pass_threads", "run_lanes", "set_pass_threads"]
+__all__ = [
+    "LANES",
+    "PARALLEL_MIN_TERMS",
+    "lane_slices",
+    "pass_threads",
+    "run_lanes",
+    "set_pass_threads",
+]
 
 LANES = 2
+PARALLEL_MIN_TERMS = 32  # fewer terms: one thread is faster (module docstring)
 MIN_LANE_ROWS = 8192  # a block shorter than 2 x this stays in lane 0: splitting would cost more
 
 _PREFIX = "riskfit-lane"
@@ -71,14 +85,15 @@ def _worker() -> ThreadPoolExecutor:
         return _pool
 
 
-def run_lanes(tasks: Sequence[Callable[[], None]]) -> None:
+def run_lanes(tasks: Sequence[Callable[[], None]], *, n_terms: int = PARALLEL_MIN_TERMS) -> None:
     """Run ``tasks[k]`` for lane ``k``; returns when all are done.
 
-    With two threads, lane 1 runs in the worker while lane 0 runs here. An exception is
-    re-raised after every lane has stopped, lane 0's first (its rows come first).
+    With two threads (and at least :data:`PARALLEL_MIN_TERMS` terms), lane 1 runs in the worker
+    while lane 0 runs here. An exception is re-raised after every lane has stopped, lane 0's
+    first (its rows come first).
     """
     nested = threading.current_thread().name.startswith(_PREFIX)  # never wait on ourselves
-    if len(tasks) == 1 or _threads == 1 or nested:
+    if len(tasks) == 1 or _threads == 1 or nested or n_terms < PARALLEL_MIN_TERMS:
         for task in tasks:
             task()
         return

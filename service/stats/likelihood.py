@@ -11,7 +11,8 @@ For coefficients ``coef`` (p,), a block's linear predictor is
 information is accumulated chunk by chunk (:data:`CHUNK_ROWS` rows) as ``A' A`` with
 ``A = sqrt(w * mu * (1 - mu)) * X``, which numpy hands to BLAS ``dsyrk``; no temporary
 is larger than one chunk. Each block's rows are shared by two lanes of partial sums
-(:mod:`service.stats.lanes`), so a pass uses two cores and gives the same sums with one.
+(:mod:`service.stats.lanes`), so a pass with many terms uses two cores, and gives the same
+sums with one.
 
 :func:`scan` is the first pass: it checks the data (finite values, 0/1 outcomes,
 non-negative weights) and collects the weighted cross-product ``X' diag(w) X``,
@@ -194,7 +195,8 @@ def scan(blocks: BlockSource, p: int, term_names: tuple[str, ...]) -> DataSummar
             [
                 partial(lanes[k].add, rows(block, sl), n_obs + sl.start, term_names)
                 for k, sl in enumerate(parts)
-            ]
+            ],
+            n_terms=p,
         )
         n_obs += block.X.shape[0]
     a, b = lanes
@@ -270,7 +272,8 @@ def loglik_pass(blocks: BlockSource, coef: np.ndarray, *, want_info: bool = True
     lanes = [_PassSums(p, want_info) for _ in range(LANES)]
     for block in blocks():
         parts = lane_slices(block.X.shape[0], CHUNK_ROWS)
-        run_lanes([partial(lanes[k].add, rows(block, sl), coef) for k, sl in enumerate(parts)])
+        tasks = [partial(lanes[k].add, rows(block, sl), coef) for k, sl in enumerate(parts)]
+        run_lanes(tasks, n_terms=p)
     a, b = lanes
     return Totals(
         a.loglik + b.loglik, a.score + b.score, a.info + b.info, a.n_extreme + b.n_extreme

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Iterator
 
 import numpy as np
@@ -16,7 +17,9 @@ from service.stats.likelihood import CHUNK_ROWS, loglik_pass, scan
 
 
 @pytest.fixture
-def threads() -> Iterator[None]:
+def threads(monkeypatch: pytest.MonkeyPatch) -> Iterator[None]:
+    # Small designs here: let two threads work from one term on, so the split path runs.
+    monkeypatch.setattr(lanes, "PARALLEL_MIN_TERMS", 1)
     before = lanes.pass_threads()
     yield
     lanes.set_pass_threads(before)
@@ -103,3 +106,14 @@ def test_a_lane_that_starts_a_pass_runs_it_inline(threads: None) -> None:
 
     lanes.run_lanes([lambda: None, inner])
     assert sorted(seen) == ["a", "b"]
+
+
+def test_few_terms_stay_in_one_thread() -> None:
+    # Below PARALLEL_MIN_TERMS the lanes run in the caller (both lanes, same sums).
+    where: list[str] = []
+
+    def note() -> None:
+        where.append(threading.current_thread().name)
+
+    lanes.run_lanes([note, note], n_terms=lanes.PARALLEL_MIN_TERMS - 1)
+    assert where == [threading.current_thread().name] * 2
