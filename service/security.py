@@ -18,16 +18,16 @@ Roles are ordered ``scorer < modeler < admin``; a route states the least role it
 
 Key check cost
 --------------
-:func:`authenticate_first` runs on the event loop. With ``auth_required`` off it does no I/O
-at all. With it on, each app keeps a small in-process cache ``key_hash -> (key id, name, role,
-prefix, revoked_at)`` (:class:`KeyCache`); an entry is trusted for :data:`KEY_CACHE_TTL`
-seconds after it was read from the store, so a request with a recently seen key costs no
-worker-thread hop and no store read, and an unseen or stale key costs one hop (the store read,
-and the ``last_used_at`` touch). Revocation through :func:`revoke` evicts the key from every
-cache of this process (at once, and again when the revoking transaction commits); a
-revocation made elsewhere (another worker process, ``riskfit keys revoke``) takes effect
-within :data:`KEY_CACHE_TTL` seconds. Unknown keys are never cached. Both 401 messages and
-the 403 role check are the same whether the key came from the cache or the store.
+:func:`authenticate_first` runs on the event loop. With ``auth_required`` off it does no I/O at
+all. With it on, each app keeps a small in-process cache ``key_hash -> (key id, name, role,
+prefix, revoked_at)`` (:class:`~service.key_cache.KeyCache`); an entry is trusted for
+:data:`KEY_CACHE_TTL` seconds after it was read from the store, so a request with a recently
+seen key costs no worker-thread hop and no store read, and an unseen or stale key costs one hop
+(the store read, and the ``last_used_at`` touch). Revocation through :func:`revoke` evicts the
+key from every cache of this process (at once, and again when the revoking transaction
+commits); a revocation made elsewhere (another worker process, ``riskfit keys revoke``) takes
+effect within :data:`KEY_CACHE_TTL` seconds. Unknown keys are never cached. Both 401 messages
+and the 403 role check are the same whether the key came from the cache or the store.
 
 Audit
 -----
@@ -43,11 +43,7 @@ from __future__ import annotations
 import hashlib
 import hmac
 import secrets
-import threading
-import time
-import weakref
 from dataclasses import dataclass
-from datetime import datetime
 from typing import Any
 
 from fastapi import Request
@@ -67,6 +63,7 @@ from service.errors import (
     NotFoundError,
     PermissionDeniedError,
 )
+from service.key_cache import KEY_CACHE_TTL, KeyCache, _cache_of, _forget_everywhere, _KeyFacts
 
 __all__ = [
     "KEY_CACHE_TTL",
@@ -90,9 +87,6 @@ KEY_PREFIX = "rk_"
 KEY_BYTES = 32
 PREFIX_LEN = 10
 _CREATE_HINT = "an admin creates one with `riskfit keys create --role scorer` or POST /api-keys"
-KEY_CACHE_TTL = 5.0  # seconds a key read from the store is trusted without reading it again
-_KEY_CACHE_MAX = 4096  # entries per app (known keys only); cleared when full
-_clock = time.monotonic  # the cache's clock (tests move it)
 
 
 @dataclass(frozen=True)
@@ -190,68 +184,6 @@ def presented_key(request: Request) -> str | None:
         )
     key = request.headers.get("x-api-key", "").strip()
     return key or None
-
-
-@dataclass(frozen=True)
-class _KeyFacts:
-    """What the key check needs of a stored key (no secret: ``key_hash`` is the digest)."""
-
-    id: int
-    name: str
-    role: str
-    prefix: str
-    key_hash: str
-    revoked_at: datetime | None
-
-
-class KeyCache:
-    """``key_hash -> (facts, read at)`` of one app, each entry trusted for ``ttl`` seconds.
-
-    The clock is :func:`time.monotonic` (``_clock``); reads and writes of the dict are atomic
-    under the GIL, the lock only serialises clearing a full cache.
-    """
-
-    def __init__(self, ttl: float = KEY_CACHE_TTL, max_entries: int = _KEY_CACHE_MAX) -> None:
-        self.ttl = ttl
-        self.max_entries = max_entries
-        self._items: dict[str, tuple[_KeyFacts, float]] = {}
-        self._lock = threading.Lock()
-        _CACHES.add(self)
-
-    def get(self, digest: str) -> _KeyFacts | None:
-        hit = self._items.get(digest)
-        if hit is None or _clock() - hit[1] >= self.ttl:
-            return None
-        return hit[0]
-
-    def put(self, row: ApiKey) -> None:
-        facts = _KeyFacts(row.id, row.name, row.role, row.prefix, row.key_hash, row.revoked_at)
-        with self._lock:
-            if len(self._items) >= self.max_entries:
-                self._items.clear()
-            self._items[row.key_hash] = (facts, _clock())
-
-    def forget(self, digest: str) -> None:
-        self._items.pop(digest, None)
-
-
-_CACHES: weakref.WeakSet[KeyCache] = weakref.WeakSet()
-_CACHES_LOCK = threading.Lock()
-
-
-def _forget_everywhere(digest: str) -> None:
-    for cache in list(_CACHES):
-        cache.forget(digest)
-
-
-def _cache_of(app: Any) -> KeyCache:
-    cache: KeyCache | None = getattr(app.state, "key_cache", None)
-    if cache is None:
-        with _CACHES_LOCK:
-            cache = getattr(app.state, "key_cache", None)
-            if cache is None:
-                cache = app.state.key_cache = KeyCache()
-    return cache
 
 
 def _unknown_key() -> AuthenticationError:

@@ -11,7 +11,7 @@ from typing import Any
 import pytest
 
 from models_store.keys import revoke_key
-from service import security
+from service import key_cache, security
 from tests.api.conftest import ApiClient
 from tests.security.conftest import bearer
 
@@ -27,7 +27,7 @@ class _Clock:
 @pytest.fixture
 def clock(monkeypatch: pytest.MonkeyPatch) -> _Clock:
     c = _Clock()
-    monkeypatch.setattr(security, "_clock", c)
+    monkeypatch.setattr(key_cache, "_clock", c)
     return c
 
 
