@@ -34,11 +34,10 @@ import numpy as np
 from scipy.linalg import LinAlgError, cholesky
 from scipy.special import logit
 
-from service.errors import RankDeficientError, SpecError
+from service.errors import SpecError
 from service.stats.blocks import Block, BlockSource, sub_blocks
-from service.stats.diagnostics import check_counts, check_rank
 from service.stats.firth import half_logdet, hat_score_adjustment
-from service.stats.fit import LogisticFit, Method, _options, _start_totals, finish_fit
+from service.stats.fit import LogisticFit, Method, _options, finish_fit, newton_from_scan
 from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import NewtonResult, Objective, State, newton
 
@@ -263,31 +262,17 @@ def fit_logistic_dask(
 ) -> LogisticFit:
     """:func:`service.stats.fit.fit_logistic_blocks` with every pass run on the cluster."""
     names = _options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
-    p = n_terms
-    summary = engine.scan(p, names)
-    check_counts(summary, p)
-    if method != "ridge" or ridge_lambda == 0:
-        check_rank(summary.xtwx, names)
-    mask = np.ones(p)
-    if intercept_index is not None:
-        mask[intercept_index] = 0.0
-    obj = DaskObjective(engine, None, method, ridge_lambda, mask)
-    coef0 = np.zeros(p)
-    if intercept_index is not None:
-        coef0[intercept_index] = logit(summary.n_events / summary.sum_weights)
-    if summary.has_offset:
-        state0 = obj.evaluate(coef0)
-    else:
-        state0 = obj.from_totals(coef0, _start_totals(summary, coef0, intercept_index))
-    if state0 is None:
-        raise RankDeficientError(
-            "the information matrix is singular at the start",
-            field="X",
-            value=list(names),
-            remedy="remove redundant terms",
-            details={"terms": list(names)},
-        )
-    res = newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
+    summary = engine.scan(n_terms, names)
+    res = newton_from_scan(
+        lambda mask: DaskObjective(engine, None, method, ridge_lambda, mask),
+        summary,
+        names,
+        method=method,
+        ridge_lambda=ridge_lambda,
+        intercept_index=intercept_index,
+        max_iter=max_iter,
+        tol=tol,
+    )
     return _finish(engine, summary, res, names, method, ridge_lambda, intercept_index)
 
 

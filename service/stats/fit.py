@@ -40,6 +40,7 @@ __all__ = [
     "finish_fit",
     "fit_logistic",
     "fit_logistic_blocks",
+    "newton_from_scan",
 ]
 
 Method = Literal["mle", "firth", "ridge"]
@@ -186,15 +187,45 @@ def fit_logistic_blocks(
     Non-convergence is reported in ``converged`` / ``stop_reason``, not raised.
     """
     names = _options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
-    p = n_terms
-    summary = scan(blocks, p, names)
+    summary = scan(blocks, n_terms, names)
+    res = newton_from_scan(
+        lambda mask: Objective(blocks, method, ridge_lambda, mask),
+        summary,
+        names,
+        method=method,
+        ridge_lambda=ridge_lambda,
+        intercept_index=intercept_index,
+        max_iter=max_iter,
+        tol=tol,
+    )
+    return _finish(blocks, summary, res, names, method, ridge_lambda, intercept_index)
+
+
+def newton_from_scan(
+    make_objective: Callable[[np.ndarray], Objective],
+    summary: DataSummary,
+    names: tuple[str, ...],
+    *,
+    method: str,
+    ridge_lambda: float,
+    intercept_index: int | None,
+    max_iter: int,
+    tol: float,
+) -> NewtonResult:
+    """Existence checks on the scan, then Newton from the intercept-only start (every engine).
+
+    ``make_objective(penalty_mask)`` builds the engine's objective; the mask is 1 for every
+    penalised coefficient (all but the intercept). Without an offset the start state comes from
+    the scan's sums, with no pass.
+    """
+    p = len(names)
     check_counts(summary, p)
     if method != "ridge" or ridge_lambda == 0:
         check_rank(summary.xtwx, names)
     mask = np.ones(p)
     if intercept_index is not None:
         mask[intercept_index] = 0.0
-    obj = Objective(blocks, method, ridge_lambda, mask)
+    obj = make_objective(mask)
     coef0 = np.zeros(p)
     if intercept_index is not None:
         coef0[intercept_index] = logit(summary.n_events / summary.sum_weights)
@@ -210,8 +241,7 @@ def fit_logistic_blocks(
             remedy="remove redundant terms",
             details={"terms": list(names)},
         )
-    res = newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
-    return _finish(blocks, summary, res, names, method, ridge_lambda, intercept_index)
+    return newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
 
 
 def _finish(
