@@ -13,6 +13,7 @@ Times travel as integer microseconds since 1970-01-01 UTC, computed exactly in t
 
 from __future__ import annotations
 
+import sqlite3
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any, Literal
@@ -73,11 +74,14 @@ def epoch_micros(column: InstrumentedAttribute[datetime], dialect: str) -> Colum
     """Microseconds since 1970-01-01 UTC, computed exactly in the database.
 
     SQLite keeps the time as text ``YYYY-MM-DD HH:MM:SS[.ffffff]``: whole seconds from
-    ``strftime('%s')`` plus the fraction digits. PostgreSQL: ``extract`` gives exact numeric
-    seconds. The values (~1.7e15) are also exact in float64 (below 2**53).
+    ``unixepoch()`` (SQLite 3.38+, about twice as fast) or ``strftime('%s')`` plus the fraction
+    digits. PostgreSQL: ``extract`` gives exact numeric seconds. The values (~1.7e15) are also
+    exact in float64 (below 2**53).
     """
     if dialect == "sqlite":
-        seconds = cast(func.strftime("%s", column), BigInteger)
+        new_enough = sqlite3.sqlite_version_info >= (3, 38, 0)
+        whole = func.unixepoch(column) if new_enough else func.strftime("%s", column)
+        seconds = cast(whole, BigInteger)
         return seconds * 1_000_000 + cast(func.substr(column, 21, 6), BigInteger)
     return cast(func.extract("epoch", column) * 1_000_000, BigInteger)
 

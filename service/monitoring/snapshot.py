@@ -36,7 +36,6 @@ recently used first out. The arrays are kept in score-time order.
 from __future__ import annotations
 
 import itertools
-import sqlite3
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass
@@ -44,7 +43,7 @@ from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import numpy as np
-from sqlalchemy import BigInteger, ColumnElement, Float, cast, func, select
+from sqlalchemy import BigInteger, Float, cast, func, select
 from sqlalchemy.orm import Session
 
 from models_store.columns import epoch_micros
@@ -110,15 +109,6 @@ def _to_us(t: datetime) -> int:
     return (delta.days * 86_400 + delta.seconds) * 1_000_000 + delta.microseconds
 
 
-def _micros(column: Any, dialect: str) -> ColumnElement[int]:
-    """:func:`models_store.columns.epoch_micros`, on SQLite 3.38+ with ``unixepoch()``
-    (whole seconds, as ``strftime('%s')``, about twice as fast) plus the fraction digits."""
-    if dialect == "sqlite" and sqlite3.sqlite_version_info >= (3, 38, 0):
-        seconds = cast(func.unixepoch(column), BigInteger)
-        return seconds * 1_000_000 + cast(func.substr(column, 21, 6), BigInteger)
-    return epoch_micros(column, dialect)
-
-
 def _read(
     session: Session,
     model: RiskModel,
@@ -143,8 +133,8 @@ def _read(
         cast(Outcome.se_eta, Float(53)),
         cast(Outcome.probability, Float(53)),
         cast(Outcome.outcome, BigInteger),
-        _micros(Outcome.scored_at, dialect),
-        _micros(Outcome.observed_at, dialect),
+        epoch_micros(Outcome.scored_at, dialect),
+        epoch_micros(Outcome.observed_at, dialect),
         cast(Outcome.version_number, BigInteger),
     ).where(*where)
     result = conn.execute(stmt)
