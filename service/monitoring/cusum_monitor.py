@@ -77,6 +77,32 @@ def _thin(path: np.ndarray, points: int = 400) -> dict[str, list[float]]:
     return {"index": idx.tolist(), "value": path[idx].tolist()}
 
 
+def segment_limits(
+    *,
+    session: Session | None,
+    model: RiskModel,
+    version: int,
+    reset_at: datetime | None,
+    p_reference: np.ndarray,
+    settings: Settings,
+    cache: LimitCache,
+) -> dict[str, ControlLimit]:
+    """The ``up`` and ``down`` control limits of a segment whose predicted risks are
+    ``p_reference`` (the drift view and the start-up warm-up ask for the same keys)."""
+    limits: dict[str, ControlLimit] = {}
+    for side, R in (("up", settings.cusum_odds_ratio_up), ("down", settings.cusum_odds_ratio_down)):
+        key = limit_key(
+            model=model,
+            version=version,
+            reset_at=reset_at,
+            n=int(p_reference.size),
+            settings=settings,
+            odds_ratio=R,
+        )
+        limits[side] = cache.get(session=session, model=model, key=key, p_reference=p_reference)
+    return limits
+
+
 def cusum_view(
     *,
     session: Session | None,
@@ -106,16 +132,16 @@ def cusum_view(
         body["status"] = "not_enough_outcomes"
         return body
     y, p = cols.outcome.astype(np.float64), cols.probability
-    for side, R in (("up", settings.cusum_odds_ratio_up), ("down", settings.cusum_odds_ratio_down)):
-        key = limit_key(
-            model=model,
-            version=version,
-            reset_at=reset_at,
-            n=cols.n,
-            settings=settings,
-            odds_ratio=R,
-        )
-        limit = cache.get(session=session, model=model, key=key, p_reference=p)
+    limits = segment_limits(
+        session=session,
+        model=model,
+        version=version,
+        reset_at=reset_at,
+        p_reference=p,
+        settings=settings,
+        cache=cache,
+    )
+    for side, limit in limits.items():
         body[side] = _chart(y, p, limit)
     body["status"] = "ok"
     return body

@@ -35,8 +35,8 @@ from sqlalchemy.orm import Session
 from models_store.orm import Outcome, RiskModel
 from service.config import Settings
 from service.monitoring import outcome_blocks
-from service.monitoring.cusum_limits import LimitCache, limit_key
-from service.monitoring.cusum_monitor import cusum_segment
+from service.monitoring.cusum_limits import LimitCache
+from service.monitoring.cusum_monitor import cusum_segment, segment_limits
 from service.monitoring.snapshot import OutcomeSnapshots
 
 __all__ = ["WarmState", "Warmer", "recent_model_ids", "warm_models"]
@@ -78,16 +78,15 @@ def _warm_model(
     segment = snap.columns(since=reset_at, on="score", version=version)
     if segment.n < settings.monitor_min_events:  # the drift view shows no chart then
         return
-    for R in (settings.cusum_odds_ratio_up, settings.cusum_odds_ratio_down):
-        key = limit_key(
-            model=model,
-            version=version,
-            reset_at=reset_at,
-            n=segment.n,
-            settings=settings,
-            odds_ratio=R,
-        )
-        cache.get(session=session, model=model, key=key, p_reference=segment.probability)
+    segment_limits(
+        session=session,
+        model=model,
+        version=version,
+        reset_at=reset_at,
+        p_reference=segment.probability,
+        settings=settings,
+        cache=cache,
+    )
     session.commit()
 
 
