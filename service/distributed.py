@@ -39,7 +39,7 @@ from service.stats.blocks import Block, BlockSource, sub_blocks
 from service.stats.firth import half_logdet, hat_score_adjustment
 from service.stats.fit import LogisticFit, Method, _options, finish_fit, newton_from_scan
 from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
-from service.stats.newton import NewtonResult, Objective, State, newton
+from service.stats.newton import Objective, State, newton
 
 __all__ = ["DaskEngine", "FilePartition", "connect", "file_partitions", "fit_logistic_dask"]
 
@@ -273,18 +273,6 @@ def fit_logistic_dask(
         max_iter=max_iter,
         tol=tol,
     )
-    return _finish(engine, summary, res, names, method, ridge_lambda, intercept_index)
-
-
-def _finish(
-    engine: DaskEngine,
-    summary: DataSummary,
-    res: NewtonResult,
-    names: tuple[str, ...],
-    method: str,
-    ridge_lambda: float,
-    intercept_index: int | None,
-) -> LogisticFit:
     return finish_fit(
         summary,
         res,

@@ -198,7 +198,16 @@ def fit_logistic_blocks(
         max_iter=max_iter,
         tol=tol,
     )
-    return _finish(blocks, summary, res, names, method, ridge_lambda, intercept_index)
+    return finish_fit(
+        summary,
+        res,
+        names,
+        method,
+        ridge_lambda,
+        intercept_index,
+        separation_blocks=lambda: blocks,
+        null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
+    )
 
 
 def newton_from_scan(
@@ -242,27 +251,6 @@ def newton_from_scan(
             details={"terms": list(names)},
         )
     return newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
-
-
-def _finish(
-    blocks: BlockSource,
-    summary: DataSummary,
-    res: NewtonResult,
-    names: tuple[str, ...],
-    method: str,
-    ridge_lambda: float,
-    intercept_index: int | None,
-) -> LogisticFit:
-    return finish_fit(
-        summary,
-        res,
-        names,
-        method,
-        ridge_lambda,
-        intercept_index,
-        separation_blocks=lambda: blocks,
-        null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
-    )
 
 
 def finish_fit(
