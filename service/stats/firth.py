@@ -24,7 +24,7 @@ from scipy.linalg import solve_triangular
 
 from .blocks import Block, BlockSource
 from .lanes import LANES, lane_slices, run_lanes
-from .likelihood import CHUNK_ROWS, chunks, rows
+from .likelihood import chunk_rows, chunks, rows
 
 __all__ = ["half_logdet", "hat_score_adjustment"]
 
@@ -42,8 +42,8 @@ class _HatSums:
         self.trace = 0.0
 
     def add(self, block: Block, coef: np.ndarray, linv_t: np.ndarray) -> None:
-        for b in chunks(block):
-            eta = b.X @ coef
+        for b in chunks(block, chunk_rows(coef.shape[0])):
+            eta = np.dot(b.X, coef)
             if b.offset is not None:
                 eta += b.offset
             e = np.exp(-np.abs(eta))
@@ -53,9 +53,9 @@ class _HatSums:
             var = e / (d * d)
             if b.weights is not None:
                 var *= b.weights
-            Z = b.X @ linv_t  # rows L^-1 x_i, (m, p)
+            Z = np.dot(b.X, linv_t)  # rows L^-1 x_i, (m, p)
             h = var * np.einsum("ij,ij->i", Z, Z)
-            self.adj += b.X.T @ (h * (0.5 - mu))
+            self.adj += np.dot(b.X.T, h * (0.5 - mu))
             self.trace += float(h.sum())
 
 
@@ -74,7 +74,7 @@ def hat_score_adjustment(
     )
     lanes = [_HatSums(p) for _ in range(LANES)]
     for block in blocks():
-        parts = lane_slices(block.X.shape[0], CHUNK_ROWS)
+        parts = lane_slices(block.X.shape[0], chunk_rows(coef.shape[0]))
         run_lanes(
             [partial(lanes[k].add, rows(block, sl), coef, linv_t) for k, sl in enumerate(parts)],
             n_terms=p,

@@ -1,17 +1,19 @@
 """Two lanes of partial sums, so that one pass over the data uses two cores.
 
-numpy releases the GIL inside its BLAS calls (``X @ b``, ``A.T @ A``, which numpy hands to
-``dsyrk``) and inside most ufunc loops, so two threads summing disjoint row ranges of each block
-run largely in parallel. Every pass keeps exactly :data:`LANES` partial sums: lane ``k`` always
-takes the ``k``-th row range that :func:`lane_slices` gives for a block, and the lanes are added
-in lane order at the end. The result is therefore the same bit for bit whether one thread or two
-do the work, and however the operating system schedules them.
+numpy releases the GIL inside ``np.dot`` (which hands ``A.T`` times ``A`` to BLAS ``dsyrk``
+and ``X`` times ``b`` to ``dgemv``) and inside most ufunc loops, so two threads summing disjoint
+row ranges of each block run largely in parallel. (The ``@`` operator does not: numpy 2.4's
+matmul keeps the GIL in its BLAS calls, and two threads of ``A.T @ A`` take as long as one. The
+passes therefore call ``np.dot``.) Every pass keeps exactly :data:`LANES` partial sums: lane
+``k`` always takes the ``k``-th row range that :func:`lane_slices` gives for a block, and the
+lanes are added in lane order at the end. The result is therefore the same bit for bit whether
+one thread or two do the work, and however the operating system schedules them.
 
-A second thread only pays off when each chunk's BLAS work is large: with few terms a pass is
-many small numpy calls, and the GIL hand-offs between them cost more than the second core
-gives (measured on 1,000,000 rows: 9 terms 41 ms on one thread, 56 ms on two; 21 terms 71 vs
-81 ms; 41 terms 152 vs 107 ms; 200,000 x 101 terms 115 vs 76 ms). Passes therefore ask for two
-threads only from :data:`PARALLEL_MIN_TERMS` terms on; the lanes, and so the sums, stay the same.
+Measured on 1,000,000 rows (one full pass with the information; one thread, two threads):
+3 terms 21.7, 17.6 ms; 9 terms 40.8, 27.9 ms; 21 terms 79.3, 50.7 ms; 41 terms 144, 88 ms;
+200,000 x 101 terms 92, 49 ms. With fewer than :data:`PARALLEL_MIN_TERMS` terms a pass is a
+stream of tiny numpy calls and the GIL hand-offs between them cost more than the second core
+gives, so such passes stay on one thread; the lanes, and so the sums, stay the same.
 
 The work of lane 0 runs in the calling thread and that of lane 1 in one shared worker thread
 (created on first use, re-created after ``fork``). Several passes running at once (a server
@@ -35,7 +37,7 @@ __all__ = [
 ]
 
 LANES = 2
-PARALLEL_MIN_TERMS = 32  # fewer terms: one thread is faster (module docstring)
+PARALLEL_MIN_TERMS = 4  # fewer terms: one thread is faster (module docstring)
 MIN_LANE_ROWS = 8192  # a block shorter than 2 x this stays in lane 0: splitting would cost more
 
 _PREFIX = "riskfit-lane"

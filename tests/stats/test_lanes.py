@@ -13,7 +13,7 @@ from service.errors import DataError
 from service.stats import lanes
 from service.stats.blocks import array_blocks
 from service.stats.fit import fit_logistic
-from service.stats.likelihood import CHUNK_ROWS, loglik_pass, scan
+from service.stats.likelihood import chunk_rows, loglik_pass, scan
 
 
 @pytest.fixture
@@ -62,11 +62,11 @@ def test_split_pass_matches_statsmodels(threads: None) -> None:
 
 
 def test_lane_slices_split_on_chunk_boundaries() -> None:
-    assert lanes.lane_slices(1000, CHUNK_ROWS) == [slice(0, 1000)]
-    parts = lanes.lane_slices(65_536, CHUNK_ROWS)
+    assert lanes.lane_slices(1000, chunk_rows(4)) == [slice(0, 1000)]
+    parts = lanes.lane_slices(65_536, chunk_rows(4))
     assert [(s.start, s.stop) for s in parts] == [(0, 32_768), (32_768, 65_536)]
-    odd = lanes.lane_slices(50_001, CHUNK_ROWS)
-    assert odd[0].stop % CHUNK_ROWS == 0 and odd[1].stop == 50_001
+    odd = lanes.lane_slices(50_001, chunk_rows(4))
+    assert odd[0].stop % chunk_rows(4) == 0 and odd[1].stop == 50_001
 
 
 @pytest.mark.parametrize("n_threads", [1, 2])
