@@ -37,7 +37,8 @@ from scipy.special import logit
 from service.errors import SpecError
 from service.stats.blocks import Block, BlockSource, sub_blocks
 from service.stats.firth import half_logdet, hat_score_adjustment
-from service.stats.fit import LogisticFit, Method, _options, finish_fit, newton_from_scan
+from service.stats.fit import LogisticFit, Method, finish_fit, newton_from_scan
+from service.stats.fit_options import fit_options
 from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import Objective, State, newton
 
@@ -261,7 +262,7 @@ def fit_logistic_dask(
     tol: float = 1e-10,
 ) -> LogisticFit:
     """:func:`service.stats.fit.fit_logistic_blocks` with every pass run on the cluster."""
-    names = _options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
+    names = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
     summary = engine.scan(n_terms, names)
     res = newton_from_scan(
         lambda mask: DaskObjective(engine, None, method, ridge_lambda, mask),

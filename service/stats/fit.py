@@ -26,12 +26,14 @@ import numpy as np
 from scipy.linalg import cho_factor, cho_solve
 from scipy.special import logit
 
-from service.errors import RankDeficientError, SpecError
+from service.errors import RankDeficientError
 
 from .blocks import BlockSource, array_blocks, sub_blocks
 from .diagnostics import check_counts, check_rank, check_separation
+from .fit_options import fit_options
 from .likelihood import DataSummary, Totals, loglik_pass, scan
 from .newton import NewtonResult, Objective, State, newton
+from .warm_start import sample_blocks, sample_start
 
 __all__ = [
     "LogisticFit",
@@ -44,7 +46,6 @@ __all__ = [
 ]
 
 Method = Literal["mle", "firth", "ridge"]
-_METHODS = ("mle", "firth", "ridge")
 
 
 @dataclass(frozen=True)
@@ -74,63 +75,6 @@ class LogisticFit:
     warnings: tuple[str, ...]
     intercept_index: int | None = 0
     null_penalized_loglik: float = float("nan")  # intercept-only, same penalty (Firth LR tests)
-
-
-def _options(
-    n_terms: int,
-    term_names: Sequence[str] | None,
-    method: str,
-    ridge_lambda: float,
-    intercept_index: int | None,
-    max_iter: int,
-    tol: float,
-) -> tuple[str, ...]:
-    if method not in _METHODS:
-        raise SpecError(
-            f"unknown fitting method {method!r}",
-            field="method",
-            value=method,
-            remedy='use "mle", "firth" or "ridge"',
-        )
-    if not np.isfinite(ridge_lambda) or ridge_lambda < 0:
-        raise SpecError(
-            "ridge_lambda must be a finite number >= 0",
-            field="ridge_lambda",
-            value=ridge_lambda,
-            remedy="use e.g. 1.0",
-        )
-    if ridge_lambda > 0 and method != "ridge":
-        raise SpecError(
-            f'ridge_lambda is only used with method="ridge", not {method!r}',
-            field="ridge_lambda",
-            value=ridge_lambda,
-            remedy='set method="ridge" or drop ridge_lambda',
-        )
-    if intercept_index is not None and not 0 <= intercept_index < n_terms:
-        raise SpecError(
-            f"intercept_index {intercept_index} is not a column of a {n_terms}-term design",
-            field="intercept_index",
-            value=intercept_index,
-            remedy="give the column of ones, or None for a model without intercept",
-        )
-    if max_iter < 1 or not tol > 0:
-        raise SpecError(
-            "max_iter must be >= 1 and tol > 0",
-            field="max_iter" if max_iter < 1 else "tol",
-            value=max_iter if max_iter < 1 else tol,
-            remedy="use the defaults (max_iter=100, tol=1e-10)",
-        )
-    if term_names is None:
-        return tuple("intercept" if j == intercept_index else f"x{j}" for j in range(n_terms))
-    names = tuple(str(t) for t in term_names)
-    if len(names) != n_terms or len(set(names)) != n_terms:
-        raise SpecError(
-            f"term_names must be {n_terms} distinct names",
-            field="term_names",
-            value=list(names),
-            remedy="give one distinct name per column of X",
-        )
-    return names
 
 
 def _start_totals(s: DataSummary, coef: np.ndarray, intercept_index: int | None) -> Totals:
@@ -179,15 +123,22 @@ def fit_logistic_blocks(
     intercept_index: int | None = 0,
     max_iter: int = 100,
     tol: float = 1e-10,
+    start_sample: BlockSource | None = None,
 ) -> LogisticFit:
     """Fit by Newton-Raphson over a block source (see module docstring for definitions).
+
+    ``start_sample``: a subsample of the rows (``mle`` only); Newton then starts from the
+    maximum on it (:mod:`service.stats.warm_start`) when that is the better start.
 
     Raises SingleClassError, TooFewObservationsError, RankDeficientError,
     SeparationError (``details["terms"]``; mle only), DataError, SpecError.
     Non-convergence is reported in ``converged`` / ``stop_reason``, not raised.
     """
-    names = _options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
+    names = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
     summary = scan(blocks, n_terms, names)
+    start = None
+    if start_sample is not None and method == "mle":
+        start = sample_start(start_sample, names, intercept_index)
     res = newton_from_scan(
         lambda mask: Objective(blocks, method, ridge_lambda, mask),
         summary,
@@ -197,6 +148,7 @@ def fit_logistic_blocks(
         intercept_index=intercept_index,
         max_iter=max_iter,
         tol=tol,
+        start=start,
     )
     return finish_fit(
         summary,
@@ -220,12 +172,14 @@ def newton_from_scan(
     intercept_index: int | None,
     max_iter: int,
     tol: float,
+    start: np.ndarray | None = None,
 ) -> NewtonResult:
     """Existence checks on the scan, then Newton from the intercept-only start (every engine).
 
     ``make_objective(penalty_mask)`` builds the engine's objective; the mask is 1 for every
     penalised coefficient (all but the intercept). Without an offset the start state comes from
-    the scan's sums, with no pass.
+    the scan's sums, with no pass. A given ``start`` (p,) costs one pass and replaces the
+    intercept-only start when its penalised log-likelihood is higher.
     """
     p = len(names)
     check_counts(summary, p)
@@ -250,6 +204,10 @@ def newton_from_scan(
             remedy="remove redundant terms",
             details={"terms": list(names)},
         )
+    if start is not None:
+        warm = obj.evaluate(np.asarray(start, dtype=np.float64))
+        if warm is not None and warm.penalized_loglik > state0.penalized_loglik:
+            state0 = warm
     return newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
 
 
@@ -335,8 +293,13 @@ def fit_logistic(
     tol: float = 1e-10,
     block_rows: int = 65536,
 ) -> LogisticFit:
-    """:func:`fit_logistic_blocks` over in-memory arrays (X (n, p), y (n,) in {0, 1})."""
+    """:func:`fit_logistic_blocks` over in-memory arrays (X (n, p), y (n,) in {0, 1}).
+
+    Maximum-likelihood fits of :data:`~service.stats.warm_start.WARM_START_MIN_ROWS` rows or more
+    start from the fit on every 16th row (:mod:`service.stats.warm_start`).
+    """
     blocks = array_blocks(X, y, weights, offset, block_rows)
+    sample = sample_blocks(np.asarray(X), y, weights, offset) if method == "mle" else None
     return fit_logistic_blocks(
         blocks,
         n_terms=np.shape(X)[1] if np.ndim(X) == 2 else 0,
@@ -346,6 +309,7 @@ def fit_logistic(
         intercept_index=intercept_index,
         max_iter=max_iter,
         tol=tol,
+        start_sample=sample,
     )
 
 
