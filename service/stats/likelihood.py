@@ -17,6 +17,9 @@ sums with one.
 :func:`scan` is the first pass: it checks the data (finite values, 0/1 outcomes,
 non-negative weights) and collects the weighted cross-product ``X' diag(w) X``,
 ``X' w`` and ``X' (w y)``, from which the intercept-only start needs no further pass.
+X is not checked value by value: a NaN or infinity anywhere in X makes the diagonal of
+``X' diag(w) X`` (sums of ``w x^2``, or NaN from ``0 * inf``) non-finite, and only then is
+the block searched for the first bad value (or for a value too large to square).
 """
 
 from __future__ import annotations
@@ -111,8 +114,11 @@ def _check_shapes(b: Block, p: int) -> None:
             )
 
 
-def _check_values(b: Block, start: int, term_names: tuple[str, ...]) -> None:
-    """Finite X, 0/1 outcomes, finite weights >= 0 and offsets; ``start``: first row's index."""
+def _check_x(b: Block, start: int, term_names: tuple[str, ...]) -> None:
+    """Raise for the first non-finite value of X (rows in order); ``start``: first row's index.
+
+    Called only for a block whose cross-product came out non-finite (see :func:`scan`).
+    """
     X = b.X
     if not np.isfinite(X).all():
         bad = ~np.isfinite(X)
@@ -124,6 +130,22 @@ def _check_values(b: Block, start: int, term_names: tuple[str, ...]) -> None:
             value=float(X[row, col]),
             remedy="remove or impute rows with missing or infinite values before fitting",
         )
+    with np.errstate(over="ignore"):
+        big = np.flatnonzero(~np.isfinite(np.einsum("ij,ij->j", X, X)))
+    if big.size:
+        col = int(big[0])
+        row = int(np.argmax(np.abs(X[:, col])))
+        raise DataError(
+            f"term {term_names[col]!r} has values too large to square in floating point"
+            f" (row {start + row})",
+            field=f"X[{start + row}, {col}]",
+            value=float(X[row, col]),
+            remedy="rescale the feature (e.g. other units or a log transform)",
+        )
+
+
+def _check_targets(b: Block, start: int) -> None:
+    """0/1 outcomes, finite weights >= 0 and finite offsets; ``start``: first row's index."""
     y = b.y
     bad_y = ~((y == 0) | (y == 1))
     if bad_y.any():
@@ -185,26 +207,33 @@ class _ScanSums:
         self.events = 0.0
 
     def add(self, block: Block, start: int, term_names: tuple[str, ...]) -> None:
-        _check_values(block, start, term_names)
-        for b in chunks(block, chunk_rows(len(term_names))):
+        _check_targets(block, start)
+        with np.errstate(over="ignore", invalid="ignore"):  # bad X shows as non-finite sums
+            self._sums(block, chunk_rows(len(term_names)))
+
+    def _sums(self, block: Block, size: int) -> None:
+        wy = np.empty((min(size, block.X.shape[0]), 2))  # columns w and w * y
+        for b in chunks(block, size):
+            m = b.X.shape[0]
+            cols = wy[:m]
             if b.weights is None:
-                m = b.X.shape[0]
                 self.n_pos += m
-                self.sum_w += m
-                self.events += float(b.y.sum())
-                self.xtw += b.X.sum(axis=0)
-                self.xtwy += np.dot(b.X.T, b.y)
+                cols[:, 0] = 1.0
+                cols[:, 1] = b.y
                 self.xtwx += np.dot(b.X.T, b.X)  # dsyrk, GIL released (module docstring)
             else:
                 w = b.weights
                 self.n_pos += int(np.count_nonzero(w > 0))
-                self.sum_w += float(w.sum())
-                wy = w * b.y
-                self.events += float(wy.sum())
-                self.xtw += np.dot(b.X.T, w)
-                self.xtwy += np.dot(b.X.T, wy)
+                cols[:, 0] = w
+                np.multiply(w, b.y, out=cols[:, 1])
                 Xs = b.X * np.sqrt(w)[:, None]
                 self.xtwx += np.dot(Xs.T, Xs)
+            sums = cols.sum(axis=0)
+            self.sum_w += float(sums[0])
+            self.events += float(sums[1])
+            both = np.dot(b.X.T, cols)  # X' w and X' (w y) in one dgemm
+            self.xtw += both[:, 0]
+            self.xtwy += both[:, 1]
 
 
 def scan(blocks: BlockSource, p: int, term_names: tuple[str, ...]) -> DataSummary:
@@ -223,6 +252,8 @@ def scan(blocks: BlockSource, p: int, term_names: tuple[str, ...]) -> DataSummar
             ],
             n_terms=p,
         )
+        if not all(np.isfinite(lane.xtwx).all() for lane in lanes):
+            _check_x(block, n_obs, term_names)  # raises: the first bad value from this block on
         n_obs += block.X.shape[0]
     a, b = lanes
     return DataSummary(

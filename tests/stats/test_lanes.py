@@ -117,3 +117,26 @@ def test_few_terms_stay_in_one_thread() -> None:
 
     lanes.run_lanes([note, note], n_terms=lanes.PARALLEL_MIN_TERMS - 1)
     assert where == [threading.current_thread().name] * 2
+
+
+def test_scan_finds_the_first_non_finite_value_even_in_a_zero_weight_row() -> None:
+    # The scan checks X through the diagonal of X'WX (module docstring of likelihood): a zero
+    # weight must not hide an infinity (0 * inf is NaN), and with two bad blocks the error
+    # names the earlier row.
+    X, y, w, _ = _data(150_000, 8)
+    w[70_001] = 0.0
+    X[70_001, 3] = np.inf
+    X[120_000, 1] = np.nan
+    with pytest.raises(DataError) as err:
+        fit_logistic(X, y, weights=w)
+    assert err.value.field == "X[70001, 3]"
+
+
+def test_values_too_large_to_square_are_refused_by_name() -> None:
+    # Finite but |x| > ~1.3e154: x^2 overflows, so the cross-products would be infinite.
+    X, y, _, _ = _data(5_000, 9)
+    X[1_234, 2] = 1e200
+    with pytest.raises(DataError) as err:
+        fit_logistic(X, y, term_names=["intercept", "a", "b", "c", "d"])
+    assert err.value.field == "X[1234, 2]" and "'b'" in err.value.message
+    assert "rescale" in (err.value.remedy or "")
