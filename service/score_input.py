@@ -18,7 +18,15 @@ import numpy as np
 from service.data_io import FieldNamer, coerce_column, columns_from_rows
 from service.errors import DataError
 
-__all__ = ["KEY_FIELD", "ScoreInput", "coerced", "columns_input", "namer", "records_input"]
+__all__ = [
+    "KEY_FIELD",
+    "ScoreInput",
+    "coerced",
+    "columns_input",
+    "namer",
+    "record_keys",
+    "records_input",
+]
 
 KEY_FIELD = "key"
 
@@ -59,6 +67,11 @@ def _number_text(value: float) -> str:
     return str(int(value)) if isinstance(value, float) and value.is_integer() else str(value)
 
 
+def record_keys(values: Sequence[Any], prefix: str) -> list[str | None] | None:
+    """The keys of records ``prefix[i].key`` as text, or None when no record has one."""
+    return _keys(values, lambda i: f"{prefix}[{i}].key")
+
+
 def _keys(values: Sequence[Any], field: Callable[[int], str]) -> list[str | None] | None:
     if values.count(None) == len(values):
         return None
@@ -71,7 +84,7 @@ def records_input(records: Sequence[Mapping[str, Any]], names: Sequence[str]) ->
         cols: dict[str, Any] = {name: list(map(itemgetter(name), records)) for name in names}
     except KeyError:
         cols = columns_from_rows(records, names, "records")  # names the first record lacking one
-    keys = _keys(list(map(methodcaller("get", KEY_FIELD), records)), lambda i: f"records[{i}].key")
+    keys = record_keys(list(map(methodcaller("get", KEY_FIELD), records)), "records")
     return ScoreInput(cols, keys, len(records), lambda name, i: f"records[{i}].{name}", "records")
 
 

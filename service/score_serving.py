@@ -35,6 +35,7 @@ from service.score_writer import ChampionChangedError, ScoreLogWriter, writer_of
 from service.scoring import (
     ScoredBatch,
     score_prepared,
+    score_record,
     scoring_model,
     version_to_score,
 )
@@ -102,6 +103,18 @@ async def serve_scores(
             v = await run_in_threadpool(_read_version, state, model, number)
 
         def score(v: LoadedVersion = v) -> ScoredBatch:
+            claims_champion = options.version is None
+            if not is_columns and len(data) == 1:  # the version's compiled one-record path
+                one = score_record(
+                    model=model,
+                    v=v,
+                    record=data[0],
+                    confidence_level=level,
+                    explain=options.explain,
+                    checks_champion=claims_champion,
+                )
+                if one is not None:
+                    return one
             batch: ScoreInput = (columns_input if is_columns else records_input)(data, v.inputs)
             return score_prepared(
                 model=model,
@@ -109,7 +122,7 @@ async def serve_scores(
                 batch=batch,
                 confidence_level=level,
                 explain=options.explain,
-                checks_champion=options.version is None,
+                checks_champion=claims_champion,
             )
 
         try:

@@ -33,7 +33,14 @@ from service.api.responses import dumps
 from service.data_io import coerce_column
 from service.errors import VersionNotFoundError
 from service.score_answer import ITEM_KEYS, answer_json
-from service.score_input import ScoreInput, coerced, columns_input, namer, records_input
+from service.score_input import (
+    ScoreInput,
+    coerced,
+    columns_input,
+    namer,
+    record_keys,
+    records_input,
+)
 from service.score_log_rows import inputs_json, new_score_ids
 from service.score_writer import ScoreLogWriter, ScoreRows
 from service.stats.design import design_matrix
@@ -54,6 +61,7 @@ __all__ = [
     "records_input",
     "score_batch",
     "score_prepared",
+    "score_record",
     "score_records",
     "scoring_model",
     "version_to_score",
@@ -152,29 +160,82 @@ def score_prepared(
     ``checks_champion``: ``v`` was taken as the champion without reading the store, so the
     commit must find it still the champion (:func:`service.score_writer.check_champion`).
     """
-    number = v.number
     cols = {name: coerced(batch, name, kind) for name, kind in v.kinds.items()}
     offset = None
     if v.offset:
         offset = coerce_column(v.offset, "numeric", batch.columns[v.offset], namer(batch, v.offset))
     design = design_matrix(v.encoding, cols, field_prefix=batch.prefix)
-    pred = predict(design.X, v.coef, v.cov, offset=offset, confidence_level=confidence_level)
-    n = batch.n
+    return _scored(
+        model,
+        v,
+        _Designed(design.X, design.extrapolated, cols, offset, batch.keys),
+        lambda: _inputs_json(batch, v),
+        confidence_level=confidence_level,
+        explain=explain,
+        checks_champion=checks_champion,
+    )
+
+
+def score_record(
+    *,
+    model: RiskModel,
+    v: LoadedVersion,
+    record: Mapping[str, Any],
+    confidence_level: float,
+    explain: bool,
+    checks_champion: bool = False,
+) -> ScoredBatch | None:
+    """:func:`score_prepared` for one record through the version's compiled plan.
+
+    The same rows and answer bytes as the general path (tests/api/test_score_record.py), or
+    None when the plan leaves the record to the general path (which words any error).
+    """
+    d = v.record_plan.design(record)
+    if d is None:
+        return None
+    keys = record_keys([d.key], "records")
+    designed = _Designed(d.X, d.extrapolated, d.raw, d.offset, keys)
+    return _scored(
+        model,
+        v,
+        designed,
+        lambda: [d.inputs_json],
+        confidence_level=confidence_level,
+        explain=explain,
+        checks_champion=checks_champion,
+    )
+
+
+@dataclass(frozen=True)
+class _Designed:
+    """A batch's design: ``X`` (n, p), extrapolation masks with the values they flag, the
+    offset (n,) or None, and the client keys (None: no record has one)."""
+
+    X: np.ndarray
+    extrapolated: Mapping[str, np.ndarray]
+    values: Mapping[str, np.ndarray]
+    offset: np.ndarray | None
+    keys: list[str | None] | None
+
+
+def _scored(
+    model: RiskModel,
+    v: LoadedVersion,
+    d: _Designed,
+    inputs: Callable[[], list[str]],
+    *,
+    confidence_level: float,
+    explain: bool,
+    checks_champion: bool,
+) -> ScoredBatch:
+    """Predict ``d`` with ``v`` and build the log rows (``inputs()``: each record's JSON)."""
+    number = v.number
+    pred = predict(d.X, v.coef, v.cov, offset=d.offset, confidence_level=confidence_level)
+    n = d.X.shape[0]
     ids = new_score_ids(n)
     created_at = datetime.now(UTC)
     eta, se, p = pred.eta.tolist(), pred.se_eta.tolist(), pred.probability.tolist()
-    rows = ScoreRows(
-        model,
-        number,
-        ids,
-        batch.keys,
-        _inputs_json(batch, v),
-        eta,
-        se,
-        p,
-        created_at,
-        checks_champion,
-    )
+    rows = ScoreRows(model, number, ids, d.keys, inputs(), eta, se, p, created_at, checks_champion)
 
     def header() -> dict[str, Any]:
         return {
@@ -187,15 +248,15 @@ def score_prepared(
         }
 
     def answer() -> dict[str, Any]:
-        warnings = _warnings(n, design.extrapolated, cols, v)
-        keys = batch.keys if batch.keys is not None else [None] * n
+        warnings = _warnings(n, d.extrapolated, d.values, v)
+        keys = d.keys if d.keys is not None else [None] * n
         lo, hi = pred.ci_lower.tolist(), pred.ci_upper.tolist()
         scores = [
             dict(zip(ITEM_KEYS, t, strict=True))
             for t in zip(ids, keys, p, lo, hi, eta, se, warnings, strict=True)
         ]
         if explain:
-            contrib = contributions(design.X, v.coef).tolist()
+            contrib = contributions(d.X, v.coef).tolist()
             for item, row in zip(scores, contrib, strict=True):
                 item["contributions"] = dict(zip(v.term_names, row, strict=True))
         return {**header(), "scores": scores}
@@ -203,9 +264,9 @@ def score_prepared(
     def answer_bytes() -> bytes:
         if explain:  # per-record contribution objects: the dict form
             return dumps(answer())
-        warnings = _warnings(n, design.extrapolated, cols, v)
+        warnings = _warnings(n, d.extrapolated, d.values, v)
         numbers = (pred.probability, pred.ci_lower, pred.ci_upper, pred.eta, pred.se_eta)
-        return answer_json(header(), ids, batch.keys, numbers, warnings)
+        return answer_json(header(), ids, d.keys, numbers, warnings)
 
     return ScoredBatch(rows, answer, answer_bytes)
 

@@ -17,7 +17,7 @@
 from __future__ import annotations
 
 import threading
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -25,6 +25,7 @@ from sqlalchemy.orm import Session
 
 from models_store.orm import RiskModel
 from models_store.versions import require_version
+from service.score_record import RecordPlan
 from service.stats.design import Encoding
 
 __all__ = ["LoadedVersion", "VersionCache"]
@@ -42,6 +43,11 @@ class LoadedVersion:
     coef: np.ndarray
     cov: np.ndarray
     ranges: dict[str, Any]
+    record_plan: RecordPlan = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        # compiled once per version: the single-record path (service.score_record)
+        object.__setattr__(self, "record_plan", RecordPlan(self.encoding, self.inputs, self.offset))
 
     @property
     def inputs(self) -> list[str]:
