@@ -51,27 +51,38 @@ def test_drop_terms_match_statsmodels_restricted_fits() -> None:
         assert got[name] == pytest.approx(2.0 * (full - restricted), rel=1e-8), name
 
 
-@pytest.mark.parametrize(("method", "lam"), [("mle", 0.0), ("ridge", 2.0)])
-def test_final_passes_without_information_keep_the_statistics(
-    method: str, lam: float, monkeypatch: pytest.MonkeyPatch
+@pytest.mark.parametrize(
+    ("method", "lam", "chord"),
+    [("mle", 0.0, True), ("ridge", 2.0, True), ("mle", 0.0, False), ("ridge", 2.0, False)],
+)
+def test_passes_without_information_keep_the_statistics(
+    method: str, lam: float, chord: bool, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    # large n: Newton converges fast enough that some refits' last pass skips the information
-    # (here those of x1 and x5; x2 and level stop one full pass later, by the same test)
-    import service.stats.inference as inference
+    # Large n. With chord steps (the default) every refit pass skips the information; without
+    # them Newton runs, and some refits' last pass skips it (here those of x1 and x5; x2 and
+    # level stop one full pass later). Either way the statistics equal cold refits and
+    # statsmodels.
+    import service.stats.drop_terms as drop_terms
+
+    if not chord:
+        monkeypatch.setattr(drop_terms, "_chord_refit", lambda *args: None)
 
     calls: list[bool] = []
-    real = inference.loglik_pass
+    real = drop_terms.loglik_pass
 
     def counted(blocks: BlockSource, coef: np.ndarray, *, want_info: bool = True) -> Totals:
         calls.append(want_info)
         return real(blocks, coef, want_info=want_info)
 
-    monkeypatch.setattr(inference, "loglik_pass", counted)
+    monkeypatch.setattr(drop_terms, "loglik_pass", counted)
     X, y = _data(200_000, 13)
     fit = fit_logistic(X, y, method=method, ridge_lambda=lam)  # type: ignore[arg-type]
     blocks = array_blocks(X, y, None, None)
     got = {t.name: t.statistic for t in drop_term_tests(blocks, fit, GROUPS)}
-    assert calls.count(False) >= 2, calls
+    if chord:
+        assert calls and not any(calls), calls
+    else:
+        assert calls.count(False) >= 2, calls
     for name, cols in GROUPS.items():
         cold = constrained_fit(blocks, fit, dict.fromkeys(cols, 0.0), tol=1e-12)
         want = 2.0 * (fit.penalized_loglik - cold.penalized_loglik)
@@ -82,3 +93,19 @@ def test_final_passes_without_information_keep_the_statistics(
             keep = [j for j in range(X.shape[1]) if j not in cols]
             restricted = sm.Logit(y, X[:, keep]).fit(method="newton", tol=1e-12, disp=0).llf
             assert got[name] == pytest.approx(2.0 * (full - restricted), rel=1e-8), name
+
+
+def test_a_slow_chord_gives_way_to_newton(monkeypatch: pytest.MonkeyPatch) -> None:
+    # Demand a contraction no chord reaches: every refit starts with chord steps, gives way
+    # after the second pass, and Newton from the start must still give the statsmodels values.
+    import service.stats.drop_terms as drop_terms
+
+    monkeypatch.setattr(drop_terms, "CHORD_MIN_CONTRACTION", 1e300)
+    X, y = _data(5000, 14)
+    fit = fit_logistic(X, y)
+    got = {t.name: t.statistic for t in drop_term_tests(array_blocks(X, y), fit, GROUPS)}
+    full = sm.Logit(y, X).fit(method="newton", tol=1e-12, disp=0).llf  # statsmodels Logit
+    for name, cols in GROUPS.items():
+        keep = [j for j in range(X.shape[1]) if j not in cols]
+        restricted = sm.Logit(y, X[:, keep]).fit(method="newton", tol=1e-12, disp=0).llf
+        assert got[name] == pytest.approx(2.0 * (full - restricted), rel=1e-8), name
