@@ -7,9 +7,9 @@ decrement ``g_f' I_ff^{-1} g_f`` (twice the predicted remaining gain in log-like
 Boyd & Vandenberghe 2004, sec. 9.5.1) is below :data:`DECREMENT_TOL`; the restricted
 log-likelihood is then ``l + decrement / 2`` (the quadratic model's maximum);
 ``2 (l_full - l_restricted)`` is referred to chi2 with the group's size as df. The steps
-are first chord steps (:func:`_chord_refit`: the full fit's information held, so no pass
-computes one; three to five passes at half the cost of a full one), and Newton steps when
-the chord converges slowly. The statistic agrees with a fully converged refit to about
+are first chord steps (:func:`_chord_refits`: the full fit's information held, so no pass
+computes one, and all groups share each pass; three to five passes in all), and Newton steps
+for a group whose chord converges slowly. The statistic agrees with a fully converged refit to about
 1e-9 (tests/stats/test_drop_term_refits.py).
 In a Newton refit the last pass skips the information (about half the cost of a pass) when
 Newton's quadratic convergence says the coming step ends it: with ``r = lambda /
@@ -37,8 +37,9 @@ from service.errors import SpecError
 
 from .blocks import BlockSource
 from .fit import LogisticFit, constrained_fit
-from .likelihood import loglik_pass
+from .likelihood import Totals, loglik_pass
 from .newton import Objective, State
+from .score_pass import score_pass
 
 __all__ = [
     "CHORD_MIN_CONTRACTION",
@@ -78,9 +79,8 @@ def drop_term_tests(
     blocks: BlockSource, fit: LogisticFit, groups: Mapping[str, Sequence[int]]
 ) -> tuple[LRTest, ...]:
     """LR test per group: all its columns set to 0 together (e.g. ``Encoding.term_groups``)."""
-    out = []
     p = len(fit.term_names)
-    info = _full_information(fit)
+    checked: list[tuple[str, list[int]]] = []
     for name, cols in groups.items():
         idx = sorted({int(c) for c in cols})
         if not idx or idx[0] < 0 or idx[-1] >= p or fit.intercept_index in idx:
@@ -90,7 +90,16 @@ def drop_term_tests(
                 value=list(cols),
                 remedy=f"use column indices in 0..{p - 1} other than the intercept",
             )
-        restricted = _restricted_loglik(blocks, fit, info, idx)
+        checked.append((name, idx))
+    info = _full_information(fit)
+    by_chord: dict[str, float] = {}
+    if info is not None and fit.method != "firth":
+        by_chord = _chord_refits(blocks, fit, info, checked)
+    out = []
+    for name, idx in checked:
+        restricted = by_chord.get(name)
+        if restricted is None:
+            restricted = _restricted_loglik(blocks, fit, info, idx)
         out.append(lr_test(name, 2.0 * (fit.penalized_loglik - restricted), len(idx)))
     return tuple(out)
 
@@ -126,15 +135,8 @@ def _restricted_loglik(
 ) -> float:
     """Maximum (penalised) log-likelihood with ``coef[fixed] = 0`` (Newton, decrement stop)."""
     start = _warm_start(fit, info, np.asarray(fixed, dtype=np.intp))
-    mask = np.ones(start.size)
-    if fit.intercept_index is not None:
-        mask[fit.intercept_index] = 0.0
-    obj = Objective(blocks, fit.method, fit.ridge_lambda, mask)
+    obj = _objective(blocks, fit)
     free = np.setdiff1d(np.arange(start.size), fixed)
-    if info is not None and fit.method != "firth" and free.size:
-        chord = _chord_refit(obj, info, start, free)
-        if chord is not None:
-            return chord
     state: State | None = obj.evaluate(start)
     last: float | None = None  # decrement before the last step, if that step was a full one
     for _ in range(_DROP_MAX_STEPS):
@@ -160,42 +162,77 @@ def _restricted_loglik(
     return constrained_fit(blocks, fit, fixed_at, start=start).penalized_loglik
 
 
-def _chord_refit(
-    obj: Objective, info: np.ndarray, start: np.ndarray, free: np.ndarray
-) -> float | None:
-    """Restricted maximum by chord steps: Newton steps with the full fit's information held.
+def _objective(blocks: BlockSource, fit: LogisticFit) -> Objective:
+    mask = np.ones(fit.coef.size)
+    if fit.intercept_index is not None:
+        mask[fit.intercept_index] = 0.0
+    return Objective(blocks, fit.method, fit.ridge_lambda, mask)
 
-    Every pass skips the information (about half the cost of a full pass): the step is
-    ``I_ff(b_hat)^{-1} g_f`` with ``g`` the score at the current point, the simplified Newton
-    (chord) method (Kelley, *Iterative Methods for Linear and Nonlinear Equations*, 1995,
-    sec. 5.4). It converges linearly, at a rate set by how much the information moves between
-    the full and the restricted maximum (decrements fall 100- to 1000-fold per pass on the
-    benchmark's 1,000,000 rows). Stops as the Newton refit does, when the decrement (taken with
-    the held information) is below :data:`DECREMENT_TOL`, and returns ``l + decrement / 2``;
-    None (the caller then runs Newton) when a step lowers the log-likelihood or the decrement
-    shrinks less than :data:`CHORD_MIN_CONTRACTION`-fold.
+
+@dataclass
+class _Chord:
+    """One group's chord refit in progress."""
+
+    name: str
+    free: np.ndarray
+    chol: tuple[np.ndarray, bool]  # Cholesky factor of the held I_ff
+    coef: np.ndarray
+    before: float = np.inf  # decrement at the previous point
+    floor: float = -np.inf  # the log-likelihood may not fall below this
+
+
+def _chord_refits(
+    blocks: BlockSource, fit: LogisticFit, info: np.ndarray, groups: list[tuple[str, list[int]]]
+) -> dict[str, float]:
+    """Restricted maxima by chord steps, all groups in the same passes: {group: loglik}.
+
+    Each step is ``I_ff(b_hat)^{-1} g_f`` with ``g`` the score at the current point and the full
+    fit's information held, the simplified Newton (chord) method (Kelley, *Iterative Methods for
+    Linear and Nonlinear Equations*, 1995, sec. 5.4), so no pass computes an information, and
+    one :func:`~service.stats.score_pass.score_pass` serves every group still running. It
+    converges linearly, at a rate set by how much the information moves between the full and
+    the restricted maximum (decrements fall 100- to 1000-fold per pass on the benchmark's
+    1,000,000 rows). A group stops as the Newton refit does, when the decrement (taken with the
+    held information) is below :data:`DECREMENT_TOL`, giving ``l + decrement / 2``; a group
+    whose step lowers the log-likelihood, or whose decrement shrinks less than
+    :data:`CHORD_MIN_CONTRACTION`-fold, is left out (the caller runs Newton for it).
     """
-    try:
-        chol = cho_factor(info[np.ix_(free, free)], lower=True, check_finite=False)
-    except LinAlgError:
-        return None
-    coef, before, floor = start, np.inf, -np.inf
+    obj = _objective(blocks, fit)
+    p = fit.coef.size
+    active: list[_Chord] = []
+    for name, fixed in groups:
+        free = np.setdiff1d(np.arange(p), fixed)
+        try:
+            chol = cho_factor(info[np.ix_(free, free)], lower=True, check_finite=False)
+        except LinAlgError:
+            continue
+        start = _warm_start(fit, info, np.asarray(fixed, dtype=np.intp))
+        active.append(_Chord(name, free, chol, start))
+    done: dict[str, float] = {}
+    no_info = np.zeros((p, p))
     for _ in range(_DROP_MAX_STEPS):
-        state = obj.from_totals(coef, loglik_pass(obj.blocks, coef, want_info=False))
-        if state is None or state.penalized_loglik < floor:
-            return None
-        g = state.score[free]
-        step = cho_solve(chol, g, check_finite=False)
-        decrement = float(g @ step)
-        if 0.0 <= decrement <= DECREMENT_TOL:
-            return state.penalized_loglik + 0.5 * decrement
-        if not 0.0 <= decrement <= before / CHORD_MIN_CONTRACTION:
-            return None
-        before = decrement
-        floor = state.penalized_loglik - 1e-12 * abs(state.penalized_loglik)
-        coef = coef.copy()
-        coef[free] += step
-    return None
+        if not active:
+            break
+        ll, scores, extreme = score_pass(blocks, np.column_stack([c.coef for c in active]))
+        running = []
+        for j, c in enumerate(active):
+            totals = Totals(float(ll[j]), scores[:, j].copy(), no_info, int(extreme[j]))
+            state = obj.from_totals(c.coef, totals)
+            if state is None or state.penalized_loglik < c.floor:
+                continue
+            g = state.score[c.free]
+            step = cho_solve(c.chol, g, check_finite=False)
+            decrement = float(g @ step)
+            if 0.0 <= decrement <= DECREMENT_TOL:
+                done[c.name] = state.penalized_loglik + 0.5 * decrement
+            elif 0.0 <= decrement <= c.before / CHORD_MIN_CONTRACTION:
+                c.before = decrement
+                c.floor = state.penalized_loglik - 1e-12 * abs(state.penalized_loglik)
+                c.coef = c.coef.copy()
+                c.coef[c.free] += step
+                running.append(c)
+        active = running
+    return done
 
 
 def _last_step(before: float, now: float) -> bool:
