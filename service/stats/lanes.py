@@ -2,8 +2,9 @@
 
 numpy releases the GIL inside ``np.dot`` (which hands ``A.T`` times ``A`` to BLAS ``dsyrk``
 and ``X`` times ``b`` to ``dgemv``) and inside most ufunc loops, so two threads summing disjoint
-row ranges of each block run largely in parallel. (The ``@`` operator does not: numpy 2.4's
-matmul keeps the GIL in its BLAS calls, and two threads of ``A.T @ A`` take as long as one. The
+row ranges of each block run largely in parallel. (The ``@`` operator does not for matrix-matrix
+products: numpy 2.4's matmul keeps the GIL in that BLAS call, and two threads of ``A.T @ A``
+take as long as one. The
 passes therefore call ``np.dot``.) Every pass keeps exactly :data:`LANES` partial sums: lane
 ``k`` always takes the ``k``-th row range that :func:`lane_slices` gives for a block, and the
 lanes are added in lane order at the end. The result is therefore the same bit for bit whether
