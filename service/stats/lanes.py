@@ -1,11 +1,10 @@
 """Two lanes of partial sums, so that one pass over the data uses two cores.
 
 numpy releases the GIL inside ``np.dot`` (which hands ``A.T`` times ``A`` to BLAS ``dsyrk``
-and ``X`` times ``b`` to ``dgemv``) and inside most ufunc loops, so two threads summing disjoint
-row ranges of each block run largely in parallel. (The ``@`` operator does not for matrix-matrix
-products: numpy 2.4's matmul keeps the GIL in that BLAS call, and two threads of ``A.T @ A``
-take as long as one. The
-passes therefore call ``np.dot``.) Every pass keeps exactly :data:`LANES` partial sums: lane
+and ``X`` times ``b`` to ``dgemv``) and inside most ufunc loops, so two threads summing
+disjoint row ranges of each block run largely in parallel. (The ``@`` operator does not for
+matrix-matrix products: numpy 2.4's matmul keeps the GIL in that BLAS call, and two threads
+of ``A.T @ A`` take as long as one. The passes therefore call ``np.dot``.) Every pass keeps exactly :data:`LANES` partial sums: lane
 ``k`` always takes the ``k``-th row range that :func:`lane_slices` gives for a block, and the
 lanes are added in lane order at the end. The result is therefore the same bit for bit whether
 one thread or two do the work, and however the operating system schedules them.
