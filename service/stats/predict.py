@@ -90,7 +90,7 @@ def predict(
     se = np.empty(X.shape[0])
     for start in range(0, X.shape[0], _CHUNK):
         Xc = X[start : start + _CHUNK]
-        se[start : start + _CHUNK] = np.einsum("ij,ij->i", Xc @ cov, Xc)
+        se[start : start + _CHUNK] = np.einsum("ij,ij->i", np.dot(Xc, cov), Xc)  # GIL released
     se = np.sqrt(np.clip(se, 0.0, None))
     return Prediction(
         eta, se, expit(eta), expit(eta - z * se), expit(eta + z * se), confidence_level
