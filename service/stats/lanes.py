@@ -1,13 +1,14 @@
 """Two lanes of partial sums, so that one pass over the data uses two cores.
 
-numpy releases the GIL inside ``np.dot`` (which hands ``A.T`` times ``A`` to BLAS ``dsyrk``
-and ``X`` times ``b`` to ``dgemv``) and inside most ufunc loops, so two threads summing
-disjoint row ranges of each block run largely in parallel. (The ``@`` operator does not for
+numpy releases the GIL inside ``np.dot`` (which hands ``A.T`` times ``A`` to BLAS ``dsyrk`` and
+``X`` times ``b`` to ``dgemv``) and inside most ufunc loops, so two threads summing disjoint
+row ranges of each block run largely in parallel. (The ``@`` operator does not for
 matrix-matrix products: numpy 2.4's matmul keeps the GIL in that BLAS call, and two threads
-of ``A.T @ A`` take as long as one. The passes therefore call ``np.dot``.) Every pass keeps exactly :data:`LANES` partial sums: lane
-``k`` always takes the ``k``-th row range that :func:`lane_slices` gives for a block, and the
-lanes are added in lane order at the end. The result is therefore the same bit for bit whether
-one thread or two do the work, and however the operating system schedules them.
+of ``A.T @ A`` take as long as one. The passes therefore call ``np.dot``.) Every pass keeps
+exactly :data:`LANES` partial sums: lane ``k`` always takes the ``k``-th row range that
+:func:`lane_slices` gives for a block, and the lanes are added in lane order at the end. The
+result is therefore the same bit for bit whether one thread or two do the work, and however the
+operating system schedules them.
 
 Measured on 1,000,000 rows (one full pass with the information; one thread, two threads):
 3 terms 21.7, 17.6 ms; 9 terms 40.8, 27.9 ms; 21 terms 79.3, 50.7 ms; 41 terms 144, 88 ms;

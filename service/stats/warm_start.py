@@ -2,8 +2,9 @@
 
 Newton-Raphson converges quadratically near the maximum, so the passes it spends are decided
 by how far away it starts. From the intercept-only start a fit on 1,000,000 rows x 21 terms
-takes five steps (six passes with the scan); from the maximum on a systematic subsample of
-``n / k`` rows it takes three. The subsample estimate is ``O(sqrt(k / n))`` from the full one
+takes five steps (six passes with the scan) and one on 200,000 x 101 seven; from the maximum
+on a systematic subsample of ``n / k`` rows they take three and four (plus the pass at the
+start). The subsample estimate is ``O(sqrt(k / n))`` from the full one
 (a few standard errors for k = 16), inside the region where Newton's error squares at each
 step (Nocedal & Wright, *Numerical Optimization*, 2nd ed., thm. 3.5), and the subsample fit
 itself costs about ``6 / k`` passes.
@@ -32,9 +33,17 @@ from .diagnostics import check_counts, check_rank
 from .likelihood import scan
 from .newton import Objective, newton
 
-__all__ = ["SAMPLE_MAX_ITER", "STRIDE", "WARM_START_MIN_ROWS", "sample_blocks", "sample_start"]
+__all__ = [
+    "SAMPLE_MAX_ITER",
+    "SAMPLE_ROWS_PER_TERM",
+    "STRIDE",
+    "WARM_START_MIN_ROWS",
+    "sample_blocks",
+    "sample_start",
+]
 
-WARM_START_MIN_ROWS = 262_144  # below this a fit takes a few tens of ms; no start is sought
+WARM_START_MIN_ROWS = 131_072  # below this a fit takes a few tens of ms; no start is sought
+SAMPLE_ROWS_PER_TERM = 100  # and no start from a sample with fewer rows per term
 STRIDE = 16  # every 16th row: the sample fit costs ~6/16 of a pass and starts ~4 SE away
 SAMPLE_MAX_ITER = 25
 
@@ -45,8 +54,15 @@ def sample_blocks(
     weights: np.ndarray | None,
     offset: np.ndarray | None,
 ) -> BlockSource | None:
-    """Every :data:`STRIDE`-th row as a block source (copies), or None for small data."""
-    if np.ndim(X) != 2 or np.shape(X)[0] < WARM_START_MIN_ROWS:
+    """Every :data:`STRIDE`-th row as a block source (copies), or None for small data.
+
+    None below :data:`WARM_START_MIN_ROWS` rows, or when the sample would have fewer than
+    :data:`SAMPLE_ROWS_PER_TERM` rows per column of X.
+    """
+    if np.ndim(X) != 2:
+        return None
+    n, p = np.shape(X)
+    if n < WARM_START_MIN_ROWS or n // STRIDE < SAMPLE_ROWS_PER_TERM * p:
         return None
 
     def pick(a: np.ndarray | None) -> np.ndarray | None:

@@ -52,6 +52,8 @@ def test_sample_is_every_16th_row_and_small_data_gets_none() -> None:
     np.testing.assert_array_equal(block.y, y[:: warm_start.STRIDE])
     small = warm_start.WARM_START_MIN_ROWS - 1
     assert warm_start.sample_blocks(X[:small], y[:small], None, None) is None
+    wide = N // warm_start.STRIDE // warm_start.SAMPLE_ROWS_PER_TERM + 1  # too few rows per term
+    assert warm_start.sample_blocks(np.zeros((N, wide)), y, None, None) is None
 
 
 def test_rare_column_missing_from_the_sample_falls_back_to_the_cold_start() -> None:
