@@ -128,7 +128,7 @@ class Settings(BaseSettings):
         ge=1,
         le=2,
         description="Threads per pass over the data in a fit (1 or 2; the second is used for "
-        "designs of 32 terms or more); the results are the same bit for bit.",
+        "designs of 4 terms or more); the results are the same bit for bit.",
     )
     blas_threads: int = Field(
         1,
