@@ -33,7 +33,8 @@ from .diagnostics import check_counts, check_rank, check_separation
 from .fit_options import fit_options
 from .likelihood import DataSummary, Totals, loglik_pass, scan
 from .newton import NewtonResult, Objective, State, newton
-from .warm_start import sample_blocks, sample_start
+from .row_sample import RowSample
+from .warm_start import sample_start, worth_a_start
 
 __all__ = [
     "LogisticFit",
@@ -123,22 +124,22 @@ def fit_logistic_blocks(
     intercept_index: int | None = 0,
     max_iter: int = 100,
     tol: float = 1e-10,
-    start_sample: BlockSource | None = None,
 ) -> LogisticFit:
     """Fit by Newton-Raphson over a block source (see module docstring for definitions).
 
-    ``start_sample``: a subsample of the rows (``mle`` only); Newton then starts from the
-    maximum on it (:mod:`service.stats.warm_start`) when that is the better start.
+    Maximum-likelihood fits of many rows start from the fit on a systematic sample of them,
+    taken during the scan (:mod:`service.stats.warm_start`), when that is the better start.
 
     Raises SingleClassError, TooFewObservationsError, RankDeficientError,
     SeparationError (``details["terms"]``; mle only), DataError, SpecError.
     Non-convergence is reported in ``converged`` / ``stop_reason``, not raised.
     """
     names = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
-    summary = scan(blocks, n_terms, names)
+    sample = RowSample() if method == "mle" else None
+    summary = scan(blocks, n_terms, names, sample)
     start = None
-    if start_sample is not None and method == "mle":
-        start = sample_start(start_sample, names, intercept_index)
+    if sample is not None and worth_a_start(summary, sample, n_terms):
+        start = sample_start(sample.source(), names, intercept_index)
     res = newton_from_scan(
         lambda mask: Objective(blocks, method, ridge_lambda, mask),
         summary,
@@ -293,13 +294,8 @@ def fit_logistic(
     tol: float = 1e-10,
     block_rows: int = 65536,
 ) -> LogisticFit:
-    """:func:`fit_logistic_blocks` over in-memory arrays (X (n, p), y (n,) in {0, 1}).
-
-    Maximum-likelihood fits of :data:`~service.stats.warm_start.WARM_START_MIN_ROWS` rows or more
-    start from the fit on every 16th row (:mod:`service.stats.warm_start`).
-    """
+    """:func:`fit_logistic_blocks` over in-memory arrays (X (n, p), y (n,) in {0, 1})."""
     blocks = array_blocks(X, y, weights, offset, block_rows)
-    sample = sample_blocks(np.asarray(X), y, weights, offset) if method == "mle" else None
     return fit_logistic_blocks(
         blocks,
         n_terms=np.shape(X)[1] if np.ndim(X) == 2 else 0,
@@ -309,7 +305,6 @@ def fit_logistic(
         intercept_index=intercept_index,
         max_iter=max_iter,
         tol=tol,
-        start_sample=sample,
     )
 
 

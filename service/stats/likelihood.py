@@ -34,6 +34,7 @@ from service.errors import DataError
 
 from .blocks import Block, BlockSource
 from .lanes import LANES, lane_slices, run_lanes
+from .row_sample import RowSample
 
 __all__ = [
     "DataSummary",
@@ -236,8 +237,14 @@ class _ScanSums:
             self.xtwy += both[:, 1]
 
 
-def scan(blocks: BlockSource, p: int, term_names: tuple[str, ...]) -> DataSummary:
-    """First pass: validate every block and collect counts and weighted cross-products."""
+def scan(
+    blocks: BlockSource, p: int, term_names: tuple[str, ...], sample: RowSample | None = None
+) -> DataSummary:
+    """First pass: validate every block and collect counts and weighted cross-products.
+
+    ``sample``, if given, receives every block after it passed the checks (a systematic sample
+    of the rows for a start, :mod:`service.stats.warm_start`).
+    """
     lanes = [_ScanSums(p) for _ in range(LANES)]
     n_obs = 0
     has_offset = False
@@ -254,6 +261,8 @@ def scan(blocks: BlockSource, p: int, term_names: tuple[str, ...]) -> DataSummar
         )
         if not all(np.isfinite(lane.xtwx).all() for lane in lanes):
             _check_x(block, n_obs, term_names)  # raises: the first bad value from this block on
+        if sample is not None:
+            sample.add(block, n_obs)
         n_obs += block.X.shape[0]
     a, b = lanes
     return DataSummary(

@@ -1,13 +1,16 @@
-"""A start for Newton on many rows: the same model fitted first on every k-th row.
+"""A start for Newton on many rows: the same model fitted first on a sample of the rows.
 
 Newton-Raphson converges quadratically near the maximum, so the passes it spends are decided
 by how far away it starts. From the intercept-only start a fit on 1,000,000 rows x 21 terms
 takes five steps (six passes with the scan) and one on 200,000 x 101 seven; from the maximum
-on a systematic subsample of ``n / k`` rows they take three and four (plus the pass at the
-start). The subsample estimate is ``O(sqrt(k / n))`` from the full one
-(a few standard errors for k = 16), inside the region where Newton's error squares at each
-step (Nocedal & Wright, *Numerical Optimization*, 2nd ed., thm. 3.5), and the subsample fit
-itself costs about ``6 / k`` passes.
+on a systematic sample of the rows (:mod:`service.stats.row_sample`, taken during the scan:
+every 16th row, at most 65,536 rows) they take three and four, plus the pass at the start.
+The sample estimate is ``O(1 / sqrt(m))`` from the full one for ``m`` sampled rows, whatever
+the number of rows ``n`` (about four standard errors of the full fit for ``n = 16 m``). That
+is inside the region where Newton's error squares at each step (Nocedal & Wright, *Numerical
+Optimization*, 2nd ed., thm. 3.5), and the sample fit itself costs about ``6 m / n`` passes
+(no reading: the sample is in memory), which also spares a streamed fit two or three reads
+of its file.
 
 The start changes nothing but the path: the full fit still runs Newton with step-halving to
 the same convergence test, so it ends at the same maximum (tests/stats/test_warm_start.py
@@ -28,49 +31,29 @@ from scipy.special import logit
 
 from service.errors import RiskfitError
 
-from .blocks import BlockSource, array_blocks
+from .blocks import BlockSource
 from .diagnostics import check_counts, check_rank
-from .likelihood import scan
+from .likelihood import DataSummary, scan
 from .newton import Objective, newton
+from .row_sample import RowSample
 
 __all__ = [
     "SAMPLE_MAX_ITER",
     "SAMPLE_ROWS_PER_TERM",
-    "STRIDE",
     "WARM_START_MIN_ROWS",
-    "sample_blocks",
     "sample_start",
+    "worth_a_start",
 ]
 
 WARM_START_MIN_ROWS = 131_072  # below this a fit takes a few tens of ms; no start is sought
 SAMPLE_ROWS_PER_TERM = 100  # and no start from a sample with fewer rows per term
-STRIDE = 16  # every 16th row: the sample fit costs ~6/16 of a pass and starts ~4 SE away
 SAMPLE_MAX_ITER = 25
 
 
-def sample_blocks(
-    X: np.ndarray,
-    y: np.ndarray,
-    weights: np.ndarray | None,
-    offset: np.ndarray | None,
-) -> BlockSource | None:
-    """Every :data:`STRIDE`-th row as a block source (copies), or None for small data.
-
-    None below :data:`WARM_START_MIN_ROWS` rows, or when the sample would have fewer than
-    :data:`SAMPLE_ROWS_PER_TERM` rows per column of X.
-    """
-    if np.ndim(X) != 2:
-        return None
-    n, p = np.shape(X)
-    if n < WARM_START_MIN_ROWS or n // STRIDE < SAMPLE_ROWS_PER_TERM * p:
-        return None
-
-    def pick(a: np.ndarray | None) -> np.ndarray | None:
-        return None if a is None else np.ascontiguousarray(np.asarray(a)[::STRIDE])
-
-    y_s = pick(y)
-    assert y_s is not None
-    return array_blocks(np.ascontiguousarray(X[::STRIDE]), y_s, pick(weights), pick(offset))
+def worth_a_start(summary: DataSummary, sample: RowSample, p: int) -> bool:
+    """Whether to fit ``sample`` for a start: data of :data:`WARM_START_MIN_ROWS` rows or more
+    and a sample of at least :data:`SAMPLE_ROWS_PER_TERM` rows per term."""
+    return summary.n_obs >= WARM_START_MIN_ROWS and sample.rows >= SAMPLE_ROWS_PER_TERM * p
 
 
 def sample_start(

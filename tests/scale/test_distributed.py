@@ -104,7 +104,11 @@ def test_parquet_directory_equal_single_machine(client: Any, files: dict[str, Pa
     got = fit_logistic_dask(
         DaskEngine(client, parts), n_terms=len(enc.term_names), term_names=enc.term_names
     )
-    assert_same_fit(local, got)
+    # The local engine starts Newton from a fit on a sample of the rows (this data is large
+    # enough), the cluster engine from the intercept-only start; both stop at the same
+    # convergence test (largest step <= 1e-8 of |coef| + SE), so they agree to that tolerance,
+    # not to the last bits.
+    assert_same_fit(local, got, tol=1e-8)
 
 
 def test_separation_detected_on_the_cluster(client: Any) -> None:

@@ -5,11 +5,20 @@ from __future__ import annotations
 import numpy as np
 import statsmodels.api as sm
 
-from service.stats import warm_start
-from service.stats.blocks import array_blocks
-from service.stats.fit import fit_logistic, fit_logistic_blocks
+from service.stats.blocks import Block, array_blocks
+from service.stats.fit import fit_logistic, newton_from_scan
+from service.stats.likelihood import scan
+from service.stats.newton import Objective
+from service.stats.row_sample import RowSample
+from service.stats.warm_start import (
+    SAMPLE_ROWS_PER_TERM,
+    WARM_START_MIN_ROWS,
+    sample_start,
+    worth_a_start,
+)
 
 N = 300_000  # above WARM_START_MIN_ROWS
+NAMES = tuple(f"x{j}" for j in range(6))
 
 
 def _data(seed: int, rare_rows: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
@@ -22,8 +31,28 @@ def _data(seed: int, rare_rows: np.ndarray | None = None) -> tuple[np.ndarray, n
     return X, y
 
 
-def _cold(X: np.ndarray, y: np.ndarray, w: np.ndarray | None = None, off: np.ndarray | None = None):  # type: ignore[no-untyped-def]
-    return fit_logistic_blocks(array_blocks(X, y, w, off), n_terms=X.shape[1])
+def _cold(X: np.ndarray, y: np.ndarray, w: np.ndarray, off: np.ndarray):  # type: ignore[no-untyped-def]
+    """Newton from the intercept-only start on the same data (the engine without a sample)."""
+    blocks = array_blocks(X, y, w, off)
+    names = NAMES[: X.shape[1]]
+    mask = np.r_[0.0, np.ones(X.shape[1] - 1)]
+    summary = scan(blocks, X.shape[1], names)
+    return newton_from_scan(
+        lambda m: Objective(blocks, "mle", 0.0, mask),
+        summary,
+        names,
+        method="mle",
+        ridge_lambda=0.0,
+        intercept_index=0,
+        max_iter=100,
+        tol=1e-10,
+    )
+
+
+def _sample(X: np.ndarray, y: np.ndarray):  # type: ignore[no-untyped-def]
+    sample = RowSample()
+    scan(array_blocks(X, y), X.shape[1], NAMES[: X.shape[1]], sample)
+    return sample.source()
 
 
 def test_warm_start_reaches_the_statsmodels_maximum_in_fewer_steps() -> None:
@@ -38,22 +67,45 @@ def test_warm_start_reaches_the_statsmodels_maximum_in_fewer_steps() -> None:
     np.testing.assert_allclose(warm.coef, ref.params, rtol=1e-8, atol=1e-10)
     np.testing.assert_allclose(warm.std_error, ref.bse, rtol=1e-8)
     np.testing.assert_allclose(warm.loglik, ref.llf, rtol=1e-12)
-    np.testing.assert_allclose(warm.coef, cold.coef, rtol=1e-9, atol=1e-11)
+    np.testing.assert_allclose(warm.coef, cold.state.coef, rtol=1e-9, atol=1e-11)
     assert warm.converged and cold.converged
     assert warm.iterations < cold.iterations
 
 
-def test_sample_is_every_16th_row_and_small_data_gets_none() -> None:
+def test_sample_is_every_16th_row_whatever_the_blocks() -> None:
     X, y = _data(3)
-    sample = warm_start.sample_blocks(X, y, None, None)
-    assert sample is not None
-    (block,) = list(sample())
-    np.testing.assert_array_equal(block.X, X[:: warm_start.STRIDE])
-    np.testing.assert_array_equal(block.y, y[:: warm_start.STRIDE])
-    small = warm_start.WARM_START_MIN_ROWS - 1
-    assert warm_start.sample_blocks(X[:small], y[:small], None, None) is None
-    wide = N // warm_start.STRIDE // warm_start.SAMPLE_ROWS_PER_TERM + 1  # too few rows per term
-    assert warm_start.sample_blocks(np.zeros((N, wide)), y, None, None) is None
+    want = np.flatnonzero(np.arange(N) % 16 == 0)
+    for block_rows in (65_536, 10_007):  # a block size that does not divide by 16
+        sample = RowSample(max_rows=N)
+        scan(array_blocks(X, y, None, None, block_rows), X.shape[1], NAMES, sample)
+        got = np.concatenate([b.X for b in sample.source()()])
+        np.testing.assert_array_equal(got, X[want])
+        assert sample.rows == want.size and sample.stride == 16
+
+
+def test_sample_thins_to_a_wider_stride_past_its_cap() -> None:
+    # 300,000 rows, at most 5,000 kept: the stride doubles from 16 to 64 (4,688 rows); the rows
+    # kept are the multiples of 64, as if that stride had been used from the start.
+    X, y = _data(4)
+    sample = RowSample(max_rows=5_000)
+    for lo in range(0, N, 7_001):
+        sample.add(Block(X[lo : lo + 7_001], y[lo : lo + 7_001], None, None), lo)
+    got = np.concatenate([b.y for b in sample.source()()])
+    np.testing.assert_array_equal(got, y[::64])
+    assert sample.stride == 64 and sample.rows == len(y[::64]) <= 5_000
+
+
+def test_no_start_is_sought_for_small_or_wide_data() -> None:
+    X, y = _data(5)
+    rows = WARM_START_MIN_ROWS - 1
+    sample = RowSample()
+    summary = scan(array_blocks(X[:rows], y[:rows]), X.shape[1], NAMES, sample)
+    assert not worth_a_start(summary, sample, X.shape[1])
+    sample = RowSample()
+    summary = scan(array_blocks(X, y), X.shape[1], NAMES, sample)
+    assert worth_a_start(summary, sample, X.shape[1])
+    wide_p = sample.rows // SAMPLE_ROWS_PER_TERM + 1  # too few sampled rows per term
+    assert not worth_a_start(summary, sample, wide_p)
 
 
 def test_rare_column_missing_from_the_sample_falls_back_to_the_cold_start() -> None:
@@ -62,10 +114,7 @@ def test_rare_column_missing_from_the_sample_falls_back_to_the_cold_start() -> N
     # ordinary one.
     rare = np.arange(40) * 16 * 97 + 5
     X, y = _data(21, rare)
-    sample = warm_start.sample_blocks(X, y, None, None)
-    assert sample is not None
-    names = tuple(f"x{j}" for j in range(X.shape[1]))
-    assert warm_start.sample_start(sample, names, 0) is None
+    assert sample_start(_sample(X, y), NAMES, 0) is None
     fit = fit_logistic(X, y)
     ref = sm.Logit(y, X).fit(method="newton", tol=1e-12, disp=False)  # statsmodels Logit Newton
     np.testing.assert_allclose(fit.coef, ref.params, rtol=1e-8, atol=1e-10)
@@ -80,10 +129,7 @@ def test_rare_column_separated_in_the_sample_gives_no_start() -> None:
     X, y = _data(31, rare)
     y[rare[:30]] = 0.0  # sampled rare rows: no events
     y[rare[30:45]] = 1.0  # unsampled rare rows: some events
-    sample = warm_start.sample_blocks(X, y, None, None)
-    assert sample is not None
-    names = tuple(f"x{j}" for j in range(X.shape[1]))
-    assert warm_start.sample_start(sample, names, 0) is None
+    assert sample_start(_sample(X, y), NAMES, 0) is None
     fit = fit_logistic(X, y)
     ref = sm.Logit(y, X).fit(method="newton", tol=1e-12, disp=False)  # statsmodels Logit Newton
     np.testing.assert_allclose(fit.coef, ref.params, rtol=1e-8, atol=1e-10)
