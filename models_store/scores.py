@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import functools
 import uuid
 from collections.abc import Mapping, Sequence
 from datetime import datetime
 from typing import Any, cast
 
 from sqlalchemy import Select, Table, func, insert, select
+from sqlalchemy.engine import Dialect
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -20,14 +22,17 @@ from service.errors import DuplicateKeyError
 
 __all__ = [
     "ScoreColumns",
+    "ScoreParams",
     "add_score_batch",
     "add_scores",
     "count_scores",
     "find_scores_by_keys",
     "get_score",
     "get_scores",
+    "insert_score_params",
     "new_score_id",
     "score_inputs",
+    "score_rows_params",
     "scores_with_outcomes",
 ]
 
@@ -103,24 +108,72 @@ def add_score_batch(
     """Columnar :func:`add_scores` for large batches: same checks, same rows, less per-row work.
 
     ``inputs_json`` holds each row's inputs already serialised as a JSON object (finite
-    numbers only). Rows go to the driver's ``executemany`` as plain tuples: the timestamp is
-    converted once for the whole batch by the column type's own bind processor, and no
-    per-row type processing or dict building happens. ``keys`` None means no row has a key.
-    The caller has checked that the version exists (the foreign key refuses it otherwise).
-    Keyed rows are inserted in a SAVEPOINT (a key taken concurrently refuses only this batch);
-    rows without keys need none (any failure there is the store's: the caller rolls back).
+    numbers only). Rows go to the driver's ``executemany`` as plain tuples
+    (:func:`score_rows_params`, :func:`insert_score_params`). ``keys`` None means no row has
+    a key. The caller has checked that the version exists (the foreign key refuses it
+    otherwise). Keyed rows are inserted in a SAVEPOINT (a key taken concurrently refuses only
+    this batch); rows without keys need none (any failure there is the store's: the caller
+    rolls back).
     """
     rows_for_errors = [{"key": k} for k in keys] if keys is not None else []
     if keys is not None:
         _refuse_duplicate_keys(session, model, rows_for_errors)
-    conn = session.connection()
-    table = _TABLE
-    at_proc = table.c.created_at.type.bind_processor(conn.dialect)
+    params = score_rows_params(
+        session=session,
+        model=model,
+        version_number=version_number,
+        ids=ids,
+        keys=keys,
+        inputs_json=inputs_json,
+        eta=eta,
+        se_eta=se_eta,
+        probability=probability,
+        created_at=created_at,
+    )
+    if keys is None:  # fresh ids only: nothing a SAVEPOINT would have to undo on its own
+        insert_score_params(session=session, params=params)
+        return
+    params.sort(key=lambda r: (r[3] is None, r[3] or ""))  # concurrent writers: one key order
+    try:
+        with session.begin_nested():
+            insert_score_params(session=session, params=params)
+    except IntegrityError as error:  # a key taken concurrently (PostgreSQL)
+        wanted = [str(k) for k in (keys or []) if k is not None]
+        taken = _existing_keys(session, model, wanted)
+        if not taken:
+            raise
+        raise _duplicate([k for k in wanted if k in taken], rows_for_errors) from error
+
+
+ScoreParams = tuple[str, int, int, str | None, str, float, float, float, Any]
+
+
+def score_rows_params(
+    *,
+    session: Session,
+    model: RiskModel,
+    version_number: int,
+    ids: Sequence[str],
+    keys: Sequence[str | None] | None,
+    inputs_json: Sequence[str],
+    eta: Sequence[float],
+    se_eta: Sequence[float],
+    probability: Sequence[float],
+    created_at: datetime,
+) -> list[ScoreParams]:
+    """The score-log rows as driver parameter tuples, in the table's column order.
+
+    ``(id, model_id, version_number, key, inputs, eta, se_eta, probability, created_at)``:
+    the timestamp is converted once for all rows by the column type's own bind processor;
+    no per-row type processing or dict building. No checks: see :func:`add_score_batch`.
+    """
+    dialect = session.get_bind().dialect
+    at_proc = _TABLE.c.created_at.type.bind_processor(dialect)
     at = at_proc(created_at) if at_proc is not None else created_at
-    if conn.dialect.name == "sqlite" and isinstance(at, datetime):
+    if dialect.name == "sqlite" and isinstance(at, datetime):
         at = at.isoformat(" ")  # what sqlite3's datetime adapter writes, once per batch
     n = len(ids)
-    params = list(
+    return list(
         zip(
             ids,
             [model.id] * n,
@@ -134,27 +187,27 @@ def add_score_batch(
             strict=True,
         )
     )
-    if keys is not None:  # keyed rows in key order: concurrent writers lock keys in one order
-        params.sort(key=lambda r: (r[3] is None, r[3] or ""))
-    mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-    quote = conn.dialect.identifier_preparer.quote
+
+
+def insert_score_params(*, session: Session, params: Sequence[ScoreParams]) -> None:
+    """Insert rows made by :func:`score_rows_params` as they are: no key checks, no SAVEPOINT.
+
+    For rows without keys (or already checked ones); one driver ``executemany`` per
+    :func:`~models_store._util.chunks` slice, so rows of many requests share one statement.
+    """
+    conn = session.connection()
+    sql = _insert_sql(conn.dialect)
+    for part in chunks(params):
+        conn.exec_driver_sql(sql, list(part))
+
+
+@functools.lru_cache(maxsize=8)
+def _insert_sql(dialect: Dialect) -> str:
+    mark = "?" if dialect.paramstyle == "qmark" else "%s"
+    quote = dialect.identifier_preparer.quote
     names = ("id", "model_id", "version_number", "key", "inputs", "eta", "se_eta")
     columns = ", ".join(quote(c) for c in (*names, "probability", "created_at"))
-    sql = f"INSERT INTO {quote(table.name)} ({columns}) VALUES ({', '.join([mark] * 9)})"
-    if keys is None:  # fresh ids only: nothing a SAVEPOINT would have to undo on its own
-        for part in chunks(params):
-            conn.exec_driver_sql(sql, list(part))
-        return
-    try:
-        with session.begin_nested():
-            for part in chunks(params):
-                conn.exec_driver_sql(sql, list(part))
-    except IntegrityError as error:  # a key taken concurrently (PostgreSQL)
-        wanted = [str(k) for k in (keys or []) if k is not None]
-        taken = _existing_keys(session, model, wanted)
-        if not taken:
-            raise
-        raise _duplicate([k for k in wanted if k in taken], rows_for_errors) from error
+    return f"INSERT INTO {quote(_TABLE.name)} ({columns}) VALUES ({', '.join([mark] * 9)})"
 
 
 def _refuse_duplicate_keys(

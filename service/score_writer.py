@@ -12,7 +12,9 @@ tune.
 
 A request refused on its own account (a :class:`~service.errors.RiskfitError`, e.g. a key
 already used) rolls back only its SAVEPOINT and gets that error; any other failure rolls back
-the whole group and every request in it gets the error (nothing of it was stored).
+the whole group and every request in it gets the error (nothing of it was stored). Rows
+without client keys (most of them) cannot be refused on their own account, so those of all
+the group's requests are inserted by one ``executemany`` after the keyed ones.
 
 Rows scored with the champion (``ScoreRows.checks_champion``) are checked against the champion
 read inside the commit's write transaction (:func:`check_champion`: one indexed read per model
@@ -39,7 +41,12 @@ from sqlalchemy.orm import Session
 
 from models_store.champions import model_with_champion
 from models_store.orm import RiskModel
-from models_store.scores import add_score_batch
+from models_store.scores import (
+    ScoreParams,
+    add_score_batch,
+    insert_score_params,
+    score_rows_params,
+)
 from service.errors import RiskfitError, StoreError
 
 __all__ = [
@@ -84,6 +91,21 @@ class ScoreRows:
     probability: Sequence[float]
     created_at: datetime
     checks_champion: bool = False  # scored with the champion: must still be it at commit
+
+    def params(self, session: Session) -> list[ScoreParams]:
+        """The rows as driver parameters (:func:`models_store.scores.score_rows_params`)."""
+        return score_rows_params(
+            session=session,
+            model=self.model,
+            version_number=self.version_number,
+            ids=self.ids,
+            keys=self.keys,
+            inputs_json=self.inputs_json,
+            eta=self.eta,
+            se_eta=self.se_eta,
+            probability=self.probability,
+            created_at=self.created_at,
+        )
 
     def insert(self, session: Session) -> None:
         add_score_batch(
@@ -235,14 +257,20 @@ class ScoreLogWriter:
             with self._factory() as session:
                 begin_write(session)
                 champions: dict[int, int | None] = {}  # model id -> champion read here
+                keyless: list[ScoreParams] = []  # rows of every request without keys
                 for i, (rows, _) in enumerate(group):
                     try:
                         check_champion(session, rows, self._seen, champions)
-                        rows.insert(session)  # keyed rows: in their own SAVEPOINT
+                        if rows.keys is None:
+                            keyless += rows.params(session)
+                        else:
+                            rows.insert(session)  # keyed rows: in their own SAVEPOINT
                     except StoreError:
                         raise  # the store itself failed: the whole group
                     except (RiskfitError, ChampionChangedError) as error:
                         own_errors[i] = error
+                # one statement for them all: only the store can refuse fresh ids (whole group)
+                insert_score_params(session=session, params=keyless)
                 if len(own_errors) == len(group):
                     session.rollback()  # every request refused: nothing to make durable
                     committed = False
