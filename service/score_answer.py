@@ -24,6 +24,7 @@ __all__ = ["ITEM_KEYS", "answer_json"]
 
 ITEM_KEYS = ("score_id", "key", "probability", "ci_lower", "ci_upper", "eta", "se_eta", "warnings")
 _NUMPY = orjson.OPT_SERIALIZE_NUMPY
+_FEW_VALUES = 8
 _ITEM = (
     b'{"score_id":"%s","key":%s,"probability":%s,"ci_lower":%s,"ci_upper":%s,'
     b'"eta":%s,"se_eta":%s,"warnings":%s}'
@@ -31,8 +32,14 @@ _ITEM = (
 
 
 def _numbers(values: np.ndarray) -> list[bytes]:
-    """The JSON text of each float64 value (one orjson call for the column)."""
+    """The JSON text of each float64 value (one orjson call for the column).
+
+    A column of a few values is written value by value from Python floats, exactly as the
+    dict form does (cheaper than the array call and the split for a one-record answer).
+    """
     column = np.ascontiguousarray(values, dtype=np.float64)
+    if column.shape[0] <= _FEW_VALUES:
+        return list(map(orjson.dumps, column.tolist()))
     return orjson.dumps(column, option=_NUMPY)[1:-1].split(b",")
 
 

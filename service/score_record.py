@@ -54,14 +54,13 @@ def plain_number(v: Any) -> float | None:
 class RecordDesign:
     """One record ready for :func:`service.stats.predict.predict`.
 
-    ``X`` (1, p); ``extrapolated`` feature -> (1,) bool, outside the training range;
-    ``raw`` feature -> (1,) float64 raw value (for warning texts); ``offset`` (1,) or None;
-    ``inputs_json`` the score log's inputs object; ``key`` the raw ``key`` field (or None).
+    ``X`` (1, p); ``outside`` the (feature, raw value) pairs outside the training range, in
+    feature order; ``offset`` (1,) or None; ``inputs_json`` the score log's inputs object;
+    ``key`` the raw ``key`` field (or None).
     """
 
     X: np.ndarray
-    extrapolated: dict[str, np.ndarray]
-    raw: dict[str, np.ndarray]
+    outside: list[tuple[str, float]]
     offset: np.ndarray | None
     inputs_json: str
     key: Any
@@ -72,13 +71,16 @@ class RecordPlan:
 
     def __init__(self, encoding: Encoding, inputs: Sequence[str], offset: str | None) -> None:
         self._p = len(encoding.term_names)
-        self._features = [(f, encoding.term_groups[f.name]) for f in encoding.features]
+        self._features = [
+            (f, encoding.term_groups[f.name][0], _range(f)) for f in encoding.features
+        ]
         self._tables = {
             f.name: _level_rows(f) for f in encoding.features if f.kind == "categorical"
         }
         self._interactions = [
             (a, b, encoding.term_groups[f"{a}:{b}"]) for a, b in encoding.interactions
         ]
+        self._in_interactions = frozenset(n for a, b in encoding.interactions for n in (a, b))
         self._inputs = tuple(inputs)
         self._offset = offset
         # Anything this plan does not know (a new kind or transform, an offset that is also
@@ -92,36 +94,41 @@ class RecordPlan:
         if not self.enabled:
             return None
         try:
-            values = [record[name] for name in self._inputs]
+            by_name = {name: record[name] for name in self._inputs}
         except KeyError:
             return None  # a missing feature: the general path names it
-        x = np.empty((1, self._p))
-        x[0, 0] = 1.0
+        x = np.zeros((1, self._p))
         row = x[0]
-        parts: dict[str, np.ndarray] = {}
-        extrapolated: dict[str, np.ndarray] = {}
-        raw: dict[str, np.ndarray] = {}
-        by_name = dict(zip(self._inputs, values, strict=True))
-        for f, idx in self._features:
+        row[0] = 1.0
+        parts: dict[str, np.ndarray] = {}  # the columns of features that are in interactions
+        outside: list[tuple[str, float]] = []
+        for f, first, (lo, hi) in self._features:
             v = by_name[f.name]
+            part: np.ndarray | None = None
             if f.kind == "categorical":
-                level = self._tables[f.name].get(v) if type(v) is str else None
-                if level is None:
+                part = self._tables[f.name].get(v) if type(v) is str else None
+                if part is None:
                     return None  # not text, or an unseen level
-                part = level
+                row[first : first + part.shape[0]] = part
             else:
                 number = plain_number(v)
                 if number is None or (f.transform == "log" and number <= 0.0):
                     return None
-                r = np.array([number])
-                xs = np.log(r) if f.transform == "log" else r
-                part = (
-                    np.concatenate([xs, spline_basis(xs, f.knots)[0]]) if f.kind == "spline" else xs
-                )
-                raw[f.name] = r
-                extrapolated[f.name] = _outside(r, f)
-            row[idx[0] : idx[-1] + 1] = part
-            parts[f.name] = part
+                if number < lo or number > hi:
+                    outside.append((f.name, number))
+                if f.transform is None and f.kind == "numeric":
+                    row[first] = number
+                else:  # numpy's own log and spline basis, as the general path calls them
+                    xs = np.array([number])
+                    xs = np.log(xs) if f.transform == "log" else xs
+                    part = (
+                        np.concatenate([xs, spline_basis(xs, f.knots)[0]])
+                        if f.kind == "spline"
+                        else xs
+                    )
+                    row[first : first + part.shape[0]] = part
+            if f.name in self._in_interactions:
+                parts[f.name] = part if part is not None else row[first : first + 1].copy()
         for a, b, idx in self._interactions:
             row[idx[0] : idx[-1] + 1] = (parts[a][:, None] * parts[b][None, :]).ravel()
         offset = None
@@ -132,8 +139,7 @@ class RecordPlan:
             offset = np.array([number])
         return RecordDesign(
             X=x,
-            extrapolated=extrapolated,
-            raw=raw,
+            outside=outside,
             offset=offset,
             inputs_json=orjson.dumps(by_name).decode(),
             key=record.get("key"),
@@ -146,9 +152,8 @@ def _level_rows(f: EncodedFeature) -> dict[str, np.ndarray]:
     return {lv: np.array([float(lv == d) for d in dummies]) for lv in f.levels}
 
 
-def _outside(r: np.ndarray, f: EncodedFeature) -> np.ndarray:
-    """(1,) bool: the raw value lies outside the training range ``[minimum, maximum]``."""
-    lo = f.minimum if f.minimum is not None else -np.inf
-    hi = f.maximum if f.maximum is not None else np.inf
-    out: np.ndarray = (r < lo) | (r > hi)
-    return out
+def _range(f: EncodedFeature) -> tuple[float, float]:
+    """The training range ``[minimum, maximum]`` (raw scale; unbounded where unknown)."""
+    lo = f.minimum if f.minimum is not None else -math.inf
+    hi = f.maximum if f.maximum is not None else math.inf
+    return lo, hi

@@ -101,14 +101,17 @@ def _warnings(
 ) -> list[Any]:
     out: list[Any] = [_NO_WARNINGS] * n
     for name, mask in extrapolated.items():
-        r = v.ranges.get(name, {})
         for i in np.flatnonzero(mask):
-            out[int(i)] = [
-                *out[int(i)],
-                f"extrapolation: {name}={float(cols[name][i]):g} is outside the training "
-                f"range [{r.get('min', float('nan')):g}, {r.get('max', float('nan')):g}]",
-            ]
+            out[int(i)] = [*out[int(i)], _extrapolation(name, float(cols[name][i]), v)]
     return out
+
+
+def _extrapolation(name: str, value: float, v: LoadedVersion) -> str:
+    r = v.ranges.get(name, {})
+    return (
+        f"extrapolation: {name}={value:g} is outside the training "
+        f"range [{r.get('min', float('nan')):g}, {r.get('max', float('nan')):g}]"
+    )
 
 
 @dataclass(frozen=True)
@@ -168,7 +171,9 @@ def score_prepared(
     return _scored(
         model,
         v,
-        _Designed(design.X, design.extrapolated, cols, offset, batch.keys),
+        _Designed(
+            design.X, offset, batch.keys, lambda: _warnings(batch.n, design.extrapolated, cols, v)
+        ),
         lambda: _inputs_json(batch, v),
         confidence_level=confidence_level,
         explain=explain,
@@ -194,7 +199,8 @@ def score_record(
     if d is None:
         return None
     keys = record_keys([d.key], "records")
-    designed = _Designed(d.X, d.extrapolated, d.raw, d.offset, keys)
+    warnings = [[_extrapolation(name, x, v) for name, x in d.outside] or _NO_WARNINGS]
+    designed = _Designed(d.X, d.offset, keys, lambda: warnings)
     return _scored(
         model,
         v,
@@ -208,14 +214,13 @@ def score_record(
 
 @dataclass(frozen=True)
 class _Designed:
-    """A batch's design: ``X`` (n, p), extrapolation masks with the values they flag, the
-    offset (n,) or None, and the client keys (None: no record has one)."""
+    """A batch's design: ``X`` (n, p), the offset (n,) or None, the client keys (None: no
+    record has one) and ``warnings()``, each record's warning texts (extrapolation)."""
 
     X: np.ndarray
-    extrapolated: Mapping[str, np.ndarray]
-    values: Mapping[str, np.ndarray]
     offset: np.ndarray | None
     keys: list[str | None] | None
+    warnings: Callable[[], list[Any]]
 
 
 def _scored(
@@ -248,7 +253,7 @@ def _scored(
         }
 
     def answer() -> dict[str, Any]:
-        warnings = _warnings(n, d.extrapolated, d.values, v)
+        warnings = d.warnings()
         keys = d.keys if d.keys is not None else [None] * n
         lo, hi = pred.ci_lower.tolist(), pred.ci_upper.tolist()
         scores = [
@@ -264,7 +269,7 @@ def _scored(
     def answer_bytes() -> bytes:
         if explain:  # per-record contribution objects: the dict form
             return dumps(answer())
-        warnings = _warnings(n, d.extrapolated, d.values, v)
+        warnings = d.warnings()
         numbers = (pred.probability, pred.ci_lower, pred.ci_upper, pred.eta, pred.se_eta)
         return answer_json(header(), ids, d.keys, numbers, warnings)
 

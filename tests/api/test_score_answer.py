@@ -47,3 +47,27 @@ def test_bytes_equal_the_dict_form_for_awkward_values() -> None:
     assert answer_json(header, ids, None, columns, warnings) == _dict_form(
         header, ids, None, columns, warnings
     )
+
+
+def test_few_records_equal_the_dict_form_value_by_value() -> None:
+    # A few records are written value by value (service.score_answer._FEW_VALUES): every
+    # awkward value in every number column, one and three records per answer.
+    rng = np.random.default_rng(12)
+    special = [0.0, -0.0, 1e-300, 5e-324, 1e300, np.nan, np.inf, -np.inf, 0.1, 1 / 3, 123456.0]
+    header = {
+        "model": "m",
+        "version": 1,
+        "confidence_level": 0.95,
+        "ci_method": "wald-logit",
+        "n_records": 1,
+        "created_at": datetime(2026, 5, 6, 7, 8, 9, tzinfo=UTC),
+    }
+    for n in (1, 3):
+        for value in special:
+            columns = [rng.standard_normal(n) * 10.0 ** rng.integers(-20, 20) for _ in range(5)]
+            columns[int(rng.integers(5))][int(rng.integers(n))] = value
+            ids = new_score_ids(n)
+            keys: list[str | None] = ['a "b"', None, "ü"][:n]
+            warnings = [("extrapolation: x=2 is outside [0, 1]",), (), ()][:n]
+            built = answer_json(header, ids, keys, columns, warnings)
+            assert built == _dict_form(header, ids, keys, columns, warnings)
