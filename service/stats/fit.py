@@ -180,7 +180,9 @@ def newton_from_scan(
     ``make_objective(penalty_mask)`` builds the engine's objective; the mask is 1 for every
     penalised coefficient (all but the intercept). Without an offset the start state comes from
     the scan's sums, with no pass. A given ``start`` (p,) costs one pass and replaces the
-    intercept-only start when its penalised log-likelihood is higher.
+    intercept-only start when its penalised log-likelihood is higher (with an offset, whenever
+    it can be evaluated: the intercept-only start would cost a pass of its own, and Newton's
+    step-halving climbs from any start).
     """
     p = len(names)
     check_counts(summary, p)
@@ -190,13 +192,16 @@ def newton_from_scan(
     if intercept_index is not None:
         mask[intercept_index] = 0.0
     obj = make_objective(mask)
+    warm = None if start is None else obj.evaluate(np.asarray(start, dtype=np.float64))
     coef0 = np.zeros(p)
     if intercept_index is not None:
         coef0[intercept_index] = logit(summary.n_events / summary.sum_weights)
-    if summary.has_offset:
+    if not summary.has_offset:
+        state0 = obj.from_totals(coef0, _start_totals(summary, coef0, intercept_index))
+    elif warm is None:
         state0 = obj.evaluate(coef0)
     else:
-        state0 = obj.from_totals(coef0, _start_totals(summary, coef0, intercept_index))
+        state0 = warm
     if state0 is None:
         raise RankDeficientError(
             "the information matrix is singular at the start",
@@ -205,10 +210,8 @@ def newton_from_scan(
             remedy="remove redundant terms",
             details={"terms": list(names)},
         )
-    if start is not None:
-        warm = obj.evaluate(np.asarray(start, dtype=np.float64))
-        if warm is not None and warm.penalized_loglik > state0.penalized_loglik:
-            state0 = warm
+    if warm is not None and warm.penalized_loglik > state0.penalized_loglik:
+        state0 = warm
     return newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
 
 
