@@ -41,6 +41,9 @@ from service.stats.fit import LogisticFit, Method, finish_fit, newton_from_scan
 from service.stats.fit_options import fit_options
 from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import Objective, State, newton
+from service.stats.row_sample import MAX_ROWS as MAX_SAMPLE_ROWS
+from service.stats.row_sample import RowSample
+from service.stats.warm_start import sample_start, worth_a_start
 
 __all__ = ["DaskEngine", "FilePartition", "connect", "file_partitions", "fit_logistic_dask"]
 
@@ -122,8 +125,12 @@ def _load(part: Partition) -> list[Block]:
     return list(part()())
 
 
-def _scan(part: Any, p: int, names: tuple[str, ...]) -> DataSummary:
-    return scan(_source(part, None), p, names)
+def _scan(
+    part: Any, p: int, names: tuple[str, ...], sample_rows: int
+) -> tuple[DataSummary, list[Block]]:
+    sample = RowSample(max_rows=sample_rows)
+    summary = scan(_source(part, None), p, names, sample)
+    return summary, list(sample.source()())
 
 
 def _totals(part: Any, keep: Sequence[int] | None, coef: np.ndarray, want: bool) -> Totals:
@@ -160,8 +167,20 @@ class DaskEngine:
         futures = [self.client.submit(fn, part, *args, pure=False) for part in self.parts]
         return list(self.client.gather(futures))
 
-    def scan(self, p: int, names: tuple[str, ...]) -> DataSummary:
-        parts: list[DataSummary] = self._map(_scan, p, names)
+    def scan_and_sample(self, p: int, names: tuple[str, ...]) -> tuple[DataSummary, list[Block]]:
+        """The summed scan, and a systematic sample of every partition's rows (partition order).
+
+        Each partition keeps at most ``row_sample.MAX_ROWS / partitions`` rows (at least 1,024),
+        so the client receives about as many rows as a local fit samples.
+        """
+        cap = max(1024, MAX_SAMPLE_ROWS // len(self.parts))
+        scanned: list[tuple[DataSummary, list[Block]]] = self._map(_scan, p, names, cap)
+        parts = [s for s, _ in scanned]
+        sample = [b for _, blocks in scanned for b in blocks]
+        return self._summed(parts), sample
+
+    @staticmethod
+    def _summed(parts: list[DataSummary]) -> DataSummary:
         return DataSummary(
             sum(s.n_obs for s in parts),
             sum(s.n_positive for s in parts),
@@ -261,9 +280,17 @@ def fit_logistic_dask(
     max_iter: int = 100,
     tol: float = 1e-10,
 ) -> LogisticFit:
-    """:func:`service.stats.fit.fit_logistic_blocks` with every pass run on the cluster."""
+    """:func:`service.stats.fit.fit_logistic_blocks` with every pass run on the cluster.
+
+    The scan also brings a systematic sample of each partition's rows to the client, whose fit
+    there gives Newton its start (:mod:`service.stats.warm_start`), as in a local fit.
+    """
     names = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
-    summary = engine.scan(n_terms, names)
+    summary, sample = engine.scan_and_sample(n_terms, names)
+    start = None
+    sampled = sum(b.X.shape[0] for b in sample)
+    if method == "mle" and worth_a_start(summary, sampled, n_terms):
+        start = sample_start(lambda: iter(sample), names, intercept_index)  # at the client
     res = newton_from_scan(
         lambda mask: DaskObjective(engine, None, method, ridge_lambda, mask),
         summary,
@@ -273,6 +300,7 @@ def fit_logistic_dask(
         intercept_index=intercept_index,
         max_iter=max_iter,
         tol=tol,
+        start=start,
     )
     return finish_fit(
         summary,

@@ -138,7 +138,7 @@ def fit_logistic_blocks(
     sample = RowSample() if method == "mle" else None
     summary = scan(blocks, n_terms, names, sample)
     start = None
-    if sample is not None and worth_a_start(summary, sample, n_terms):
+    if sample is not None and worth_a_start(summary, sample.rows, n_terms):
         start = sample_start(sample.source(), names, intercept_index)
     res = newton_from_scan(
         lambda mask: Objective(blocks, method, ridge_lambda, mask),

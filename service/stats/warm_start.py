@@ -35,7 +35,6 @@ from .blocks import BlockSource
 from .diagnostics import check_counts, check_rank
 from .likelihood import DataSummary, scan
 from .newton import Objective, newton
-from .row_sample import RowSample
 
 __all__ = [
     "SAMPLE_MAX_ITER",
@@ -50,10 +49,10 @@ SAMPLE_ROWS_PER_TERM = 100  # and no start from a sample with fewer rows per ter
 SAMPLE_MAX_ITER = 25
 
 
-def worth_a_start(summary: DataSummary, sample: RowSample, p: int) -> bool:
-    """Whether to fit ``sample`` for a start: data of :data:`WARM_START_MIN_ROWS` rows or more
+def worth_a_start(summary: DataSummary, sampled_rows: int, p: int) -> bool:
+    """Whether to fit a sample for a start: data of :data:`WARM_START_MIN_ROWS` rows or more
     and a sample of at least :data:`SAMPLE_ROWS_PER_TERM` rows per term."""
-    return summary.n_obs >= WARM_START_MIN_ROWS and sample.rows >= SAMPLE_ROWS_PER_TERM * p
+    return summary.n_obs >= WARM_START_MIN_ROWS and sampled_rows >= SAMPLE_ROWS_PER_TERM * p
 
 
 def sample_start(

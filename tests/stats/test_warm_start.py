@@ -100,12 +100,12 @@ def test_no_start_is_sought_for_small_or_wide_data() -> None:
     rows = WARM_START_MIN_ROWS - 1
     sample = RowSample()
     summary = scan(array_blocks(X[:rows], y[:rows]), X.shape[1], NAMES, sample)
-    assert not worth_a_start(summary, sample, X.shape[1])
+    assert not worth_a_start(summary, sample.rows, X.shape[1])
     sample = RowSample()
     summary = scan(array_blocks(X, y), X.shape[1], NAMES, sample)
-    assert worth_a_start(summary, sample, X.shape[1])
+    assert worth_a_start(summary, sample.rows, X.shape[1])
     wide_p = sample.rows // SAMPLE_ROWS_PER_TERM + 1  # too few sampled rows per term
-    assert not worth_a_start(summary, sample, wide_p)
+    assert not worth_a_start(summary, sample.rows, wide_p)
 
 
 def test_rare_column_missing_from_the_sample_falls_back_to_the_cold_start() -> None:
