@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import functools
+import itertools
 import uuid
 from collections.abc import Mapping, Sequence
 from datetime import datetime
@@ -25,10 +26,12 @@ __all__ = [
     "ScoreParams",
     "add_score_batch",
     "add_scores",
+    "checkpoint_wal",
     "count_scores",
     "find_scores_by_keys",
     "get_score",
     "get_scores",
+    "insert_fresh_scores",
     "insert_score_params",
     "new_score_id",
     "score_inputs",
@@ -37,6 +40,7 @@ __all__ = [
 ]
 
 _TABLE = cast(Table, Score.__table__)  # Core inserts, no ORM bookkeeping
+_ROWS_PER_STATEMENT = 100  # SQLite multi-row inserts: 500 bound values (the limit is 32,766)
 
 
 def new_score_id() -> str:
@@ -107,20 +111,30 @@ def add_score_batch(
 ) -> None:
     """Columnar :func:`add_scores` for large batches: same checks, same rows, less per-row work.
 
-    ``inputs_json`` holds each row's inputs already serialised as a JSON object (finite
-    numbers only). Rows go to the driver's ``executemany`` as plain tuples
-    (:func:`score_rows_params`, :func:`insert_score_params`). ``keys`` None means no row has
-    a key. The caller has checked that the version exists (the foreign key refuses it
-    otherwise). Keyed rows are inserted in a SAVEPOINT (a key taken concurrently refuses only
-    this batch); rows without keys need none (any failure there is the store's: the caller
-    rolls back).
+    ``inputs_json``: each row's inputs as a JSON object (finite numbers only); ``keys`` None:
+    no row has one. Rows go to the driver as plain tuples. The caller has checked that the
+    version exists. Keyed rows are inserted in a SAVEPOINT (a key taken concurrently refuses
+    only this batch); rows without keys need none (:func:`insert_fresh_scores`: any failure
+    there is the store's, the caller rolls back).
     """
-    rows_for_errors = [{"key": k} for k in keys] if keys is not None else []
-    if keys is not None:
-        _refuse_duplicate_keys(session, model, rows_for_errors)
+    if keys is None:  # fresh ids only: nothing a SAVEPOINT would have to undo on its own
+        insert_fresh_scores(
+            session=session,
+            model_id=model.id,
+            version_number=version_number,
+            created_at=created_at,
+            ids=ids,
+            inputs_json=inputs_json,
+            eta=eta,
+            se_eta=se_eta,
+            probability=probability,
+        )
+        return
+    rows_for_errors = [{"key": k} for k in keys]
+    _refuse_duplicate_keys(session, model, rows_for_errors)
     params = score_rows_params(
-        session=session,
-        model=model,
+        dialect=session.get_bind().dialect,
+        model_id=model.id,
         version_number=version_number,
         ids=ids,
         keys=keys,
@@ -130,15 +144,12 @@ def add_score_batch(
         probability=probability,
         created_at=created_at,
     )
-    if keys is None:  # fresh ids only: nothing a SAVEPOINT would have to undo on its own
-        insert_score_params(session=session, params=params)
-        return
     params.sort(key=lambda r: (r[3] is None, r[3] or ""))  # concurrent writers: one key order
     try:
         with session.begin_nested():
             insert_score_params(session=session, params=params)
     except IntegrityError as error:  # a key taken concurrently (PostgreSQL)
-        wanted = [str(k) for k in (keys or []) if k is not None]
+        wanted = [str(k) for k in keys if k is not None]
         taken = _existing_keys(session, model, wanted)
         if not taken:
             raise
@@ -150,8 +161,8 @@ ScoreParams = tuple[str, int, int, str | None, str, float, float, float, Any]
 
 def score_rows_params(
     *,
-    session: Session,
-    model: RiskModel,
+    dialect: Dialect,
+    model_id: int,
     version_number: int,
     ids: Sequence[str],
     keys: Sequence[str | None] | None,
@@ -161,53 +172,115 @@ def score_rows_params(
     probability: Sequence[float],
     created_at: datetime,
 ) -> list[ScoreParams]:
-    """The score-log rows as driver parameter tuples, in the table's column order.
-
-    ``(id, model_id, version_number, key, inputs, eta, se_eta, probability, created_at)``:
-    the timestamp is converted once for all rows by the column type's own bind processor;
-    no per-row type processing or dict building. No checks: see :func:`add_score_batch`.
-    """
-    dialect = session.get_bind().dialect
-    at_proc = _TABLE.c.created_at.type.bind_processor(dialect)
-    at = at_proc(created_at) if at_proc is not None else created_at
-    if dialect.name == "sqlite" and isinstance(at, datetime):
-        at = at.isoformat(" ")  # what sqlite3's datetime adapter writes, once per batch
+    """Rows as driver tuples ``(id, model_id, version_number, key, inputs, eta, se_eta,
+    probability, created_at)``; the time converted once by the column type (no checks)."""
     n = len(ids)
-    return list(
-        zip(
-            ids,
-            [model.id] * n,
-            [version_number] * n,
-            keys if keys is not None else [None] * n,
-            inputs_json,
-            eta,
-            se_eta,
-            probability,
-            [at] * n,
-            strict=True,
-        )
-    )
+    at = [_bound_time(dialect, created_at)] * n
+    no_keys = [None] * n
+    ints = ([model_id] * n, [version_number] * n)
+    columns = (ids, *ints, keys or no_keys, inputs_json, eta, se_eta, probability, at)
+    return list(zip(*columns, strict=True))
 
 
 def insert_score_params(*, session: Session, params: Sequence[ScoreParams]) -> None:
-    """Insert rows made by :func:`score_rows_params` as they are: no key checks, no SAVEPOINT.
-
-    For rows without keys (or already checked ones); one driver ``executemany`` per
-    :func:`~models_store._util.chunks` slice, so rows of many requests share one statement.
-    """
+    """Insert :func:`score_rows_params` rows unchecked (no SAVEPOINT): one ``executemany``
+    per :func:`~models_store._util.chunks` slice, shared by the rows of many requests."""
     conn = session.connection()
     sql = _insert_sql(conn.dialect)
     for part in chunks(params):
         conn.exec_driver_sql(sql, list(part))
 
 
+def insert_fresh_scores(
+    *,
+    session: Session,
+    model_id: int,
+    version_number: int,
+    created_at: datetime,
+    ids: Sequence[str],
+    inputs_json: Sequence[str],
+    eta: Sequence[float],
+    se_eta: Sequence[float],
+    probability: Sequence[float],
+) -> None:
+    """Insert one batch of rows without keys (one model, version and time), unchecked.
+
+    SQLite: the constants (model, version, NULL key, time) are written into the statement, so
+    a row binds 5 values, not 9, and a statement inserts :data:`_ROWS_PER_STATEMENT` rows:
+    10,000 rows in about 14 ms instead of 26 (in memory). Elsewhere :func:`score_rows_params`.
+    """
+    conn = session.connection()
+    if conn.dialect.name != "sqlite":
+        params = score_rows_params(
+            dialect=conn.dialect,
+            model_id=model_id,
+            version_number=version_number,
+            ids=ids,
+            keys=None,
+            inputs_json=inputs_json,
+            eta=eta,
+            se_eta=se_eta,
+            probability=probability,
+            created_at=created_at,
+        )
+        insert_score_params(session=session, params=params)
+        return
+    at = _bound_time(conn.dialect, created_at)
+    if not isinstance(at, str) or "'" in at:
+        raise TypeError(f"unexpected SQLite time text {at!r}")
+    rows = list(zip(ids, inputs_json, eta, se_eta, probability, strict=True))
+    whole = len(rows) - len(rows) % _ROWS_PER_STATEMENT
+    constants = (int(model_id), int(version_number), at)
+    if whole:
+        flat = [
+            tuple(itertools.chain.from_iterable(rows[i : i + _ROWS_PER_STATEMENT]))
+            for i in range(0, whole, _ROWS_PER_STATEMENT)
+        ]
+        sql = _fresh_sql(conn.dialect, _ROWS_PER_STATEMENT)
+        conn.exec_driver_sql(sql % (constants * _ROWS_PER_STATEMENT), flat)
+    if whole < len(rows):
+        conn.exec_driver_sql(_fresh_sql(conn.dialect, 1) % constants, rows[whole:])
+
+
+def checkpoint_wal(session: Session) -> None:
+    """SQLite: copy the write-ahead log into the database file now (``PASSIVE``: no waiting).
+
+    Else SQLite does it in the COMMIT that takes the log over 1,000 pages, while a request
+    waits; the score writer calls this after answering. In a transaction of its own that
+    reads nothing (a checkpoint cannot follow a read in one). Elsewhere a no-op.
+    """
+    conn = session.connection()
+    if conn.dialect.name == "sqlite":
+        conn.exec_driver_sql("PRAGMA wal_checkpoint(PASSIVE)")
+    session.commit()
+
+
+def _bound_time(dialect: Dialect, created_at: datetime) -> Any:
+    """``created_at`` as the driver receives it: the column type's full bind processing for
+    ``dialect`` (on SQLite the text with six fraction digits that Core inserts write), once."""
+    column_type = _TABLE.c.created_at.type.dialect_impl(dialect)
+    process = column_type.bind_processor(dialect)
+    return process(created_at) if process is not None else created_at
+
+
+@functools.lru_cache(maxsize=8)
+def _fresh_sql(dialect: Dialect, rows: int) -> str:
+    """SQLite INSERT of ``rows`` rows, each with ``%d, %d, '%s'`` for model id, version, time."""
+    values = ", ".join(["(?, %d, %d, NULL, ?, ?, ?, ?, '%s')"] * rows)
+    return f"{_insert_into(dialect)} VALUES {values}"
+
+
 @functools.lru_cache(maxsize=8)
 def _insert_sql(dialect: Dialect) -> str:
     mark = "?" if dialect.paramstyle == "qmark" else "%s"
+    return f"{_insert_into(dialect)} VALUES ({', '.join([mark] * 9)})"
+
+
+def _insert_into(dialect: Dialect) -> str:
     quote = dialect.identifier_preparer.quote
     names = ("id", "model_id", "version_number", "key", "inputs", "eta", "se_eta")
     columns = ", ".join(quote(c) for c in (*names, "probability", "created_at"))
-    return f"INSERT INTO {quote(_TABLE.name)} ({columns}) VALUES ({', '.join([mark] * 9)})"
+    return f"INSERT INTO {quote(_TABLE.name)} ({columns})"
 
 
 def _refuse_duplicate_keys(

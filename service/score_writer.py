@@ -13,8 +13,11 @@ tune.
 A request refused on its own account (a :class:`~service.errors.RiskfitError`, e.g. a key
 already used) rolls back only its SAVEPOINT and gets that error; any other failure rolls back
 the whole group and every request in it gets the error (nothing of it was stored). Rows
-without client keys (most of them) cannot be refused on their own account, so those of all
-the group's requests are inserted by one ``executemany`` after the keyed ones.
+without client keys (most of them) cannot be refused on their own account: those of the
+group's small requests share one ``executemany``; a big batch gets multi-row statements of
+its own (:func:`models_store.scores.insert_fresh_scores`). After answering a group the writer
+checkpoints SQLite's write-ahead log once enough rows have gone in (:data:`CHECKPOINT_ROWS`),
+so that no COMMIT a request waits for has to do it.
 
 Rows scored with the champion (``ScoreRows.checks_champion``) are checked against the champion
 read inside the commit's write transaction (:func:`check_champion`: one indexed read per model
@@ -44,6 +47,7 @@ from models_store.orm import RiskModel
 from models_store.scores import (
     ScoreParams,
     add_score_batch,
+    checkpoint_wal,
     insert_score_params,
     score_rows_params,
 )
@@ -59,6 +63,8 @@ __all__ = [
 ]
 
 MAX_GROUP_ROWS = 20_000  # rows per group commit (a bound on one transaction's size)
+OWN_STATEMENT_ROWS = 256  # keyless batches this big get a statement with their constants inlined
+CHECKPOINT_ROWS = 5_000  # rows committed between the writer's own WAL checkpoints (SQLite)
 # SQLite: take the write lock at BEGIN (models_store.db's documented execution option), so the
 # champion read and the insert see one state of the store; PostgreSQL ignores the option.
 _WRITE_TXN = {"riskfit_sqlite_begin": "IMMEDIATE"}
@@ -95,8 +101,8 @@ class ScoreRows:
     def params(self, session: Session) -> list[ScoreParams]:
         """The rows as driver parameters (:func:`models_store.scores.score_rows_params`)."""
         return score_rows_params(
-            session=session,
-            model=self.model,
+            dialect=session.get_bind().dialect,
+            model_id=self.model.id,
             version_number=self.version_number,
             ids=self.ids,
             keys=self.keys,
@@ -200,6 +206,7 @@ class ScoreLogWriter:
         self._thread = threading.Thread(target=self._run, name="riskfit-score-log", daemon=True)
         self._thread.start()
         self.groups = 0  # commits made (for tests and metrics); all-refused groups make none
+        self._since_checkpoint = 0  # rows committed since the last WAL checkpoint
 
     def submit(self, rows: ScoreRows) -> Future[None]:
         """Queue ``rows``; the future is done once they are committed (or holds the error)."""
@@ -257,19 +264,19 @@ class ScoreLogWriter:
             with self._factory() as session:
                 begin_write(session)
                 champions: dict[int, int | None] = {}  # model id -> champion read here
-                keyless: list[ScoreParams] = []  # rows of every request without keys
+                keyless: list[ScoreParams] = []  # rows of the small requests without keys
                 for i, (rows, _) in enumerate(group):
                     try:
                         check_champion(session, rows, self._seen, champions)
-                        if rows.keys is None:
+                        if rows.keys is None and len(rows.ids) < OWN_STATEMENT_ROWS:
                             keyless += rows.params(session)
-                        else:
-                            rows.insert(session)  # keyed rows: in their own SAVEPOINT
+                        else:  # keyed rows in their own SAVEPOINT; big ones, constants inlined
+                            rows.insert(session)
                     except StoreError:
                         raise  # the store itself failed: the whole group
                     except (RiskfitError, ChampionChangedError) as error:
                         own_errors[i] = error
-                # one statement for them all: only the store can refuse fresh ids (whole group)
+                # the small ones share a statement: only the store can refuse fresh ids
                 insert_score_params(session=session, params=keyless)
                 if len(own_errors) == len(group):
                     session.rollback()  # every request refused: nothing to make durable
@@ -284,6 +291,11 @@ class ScoreLogWriter:
             return
         self.groups += committed
         _settle(group, own_errors)
+        self._since_checkpoint += sum(len(rows.ids) for rows, _ in group) if committed else 0
+        if self._since_checkpoint >= CHECKPOINT_ROWS:  # after answering: off the request's path
+            self._since_checkpoint = 0
+            with contextlib.suppress(Exception), self._factory() as session:
+                checkpoint_wal(session)  # a failure here only leaves the WAL to SQLite
 
 
 def _settle(group: list[_Job], errors: Mapping[int, BaseException]) -> None:

@@ -6,6 +6,7 @@ import time
 from datetime import UTC, datetime, timedelta
 
 import numpy as np
+import orjson
 import pytest
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
@@ -23,6 +24,13 @@ from models_store import (
     get_scores,
     score_inputs,
     scores_with_outcomes,
+)
+from models_store.scores import (
+    checkpoint_wal,
+    insert_fresh_scores,
+    insert_score_params,
+    new_score_id,
+    score_rows_params,
 )
 from service.errors import DuplicateKeyError, VersionNotFoundError
 from tests.store.dbfixtures import version_fields
@@ -169,3 +177,64 @@ def test_bulk_insert_of_50000_scores(session: Session, model: RiskModel) -> None
     dialect = session.get_bind().dialect.name
     print(f"\n[{dialect}] add_scores 50,000 rows + commit: {elapsed:.2f} s")
     assert len(ids) == 50_000 and _count(session) == 50_000
+
+
+def test_fresh_and_merged_inserts_store_what_add_scores_stores(
+    session: Session, model: RiskModel
+) -> None:
+    # The same rows through add_scores (ORM-free dict rows, the reference), the batch insert
+    # with its constants in the statement (insert_fresh_scores) and the merged 9-value rows
+    # (score_rows_params + insert_score_params): identical stored columns.
+    rows = _rows(305, seed=4)  # 3 multi-row statements and 5 single rows on SQLite
+    ids = [new_score_id() for _ in rows]
+    columns = {
+        "inputs_json": [orjson.dumps(r["inputs"]).decode() for r in rows],
+        "eta": [r["eta"] for r in rows],
+        "se_eta": [r["se_eta"] for r in rows],
+        "probability": [r["probability"] for r in rows],
+    }
+    add_scores(
+        session=session,
+        model=model,
+        version_number=1,
+        rows=[{**r, "id": f"a{i[1:]}"} for r, i in zip(rows, ids, strict=True)],
+        created_at=T0,
+    )
+    insert_fresh_scores(
+        session=session,
+        model_id=model.id,
+        version_number=1,
+        created_at=T0,
+        ids=[f"b{i[1:]}" for i in ids],
+        **columns,  # type: ignore[arg-type]
+    )
+    params = score_rows_params(
+        dialect=session.get_bind().dialect,
+        model_id=model.id,
+        version_number=1,
+        ids=[f"c{i[1:]}" for i in ids],
+        keys=None,
+        created_at=T0,
+        **columns,  # type: ignore[arg-type]
+    )
+    insert_score_params(session=session, params=params)
+    session.commit()
+    checkpoint_wal(session)  # SQLite: the log copied into the database file; else a no-op
+    stored = {s.id: s for s in session.scalars(select(Score))}
+    assert len(stored) == 3 * len(rows)
+    for i in ids:
+        a, b, c = (stored[p + i[1:]] for p in "abc")
+        for s in (b, c):
+            assert (s.model_id, s.version_number, s.key, s.created_at) == (
+                a.model_id,
+                a.version_number,
+                a.key,
+                a.created_at,
+            )
+            assert (s.inputs, s.eta, s.se_eta, s.probability) == (
+                a.inputs,
+                a.eta,
+                a.se_eta,
+                a.probability,
+            )
+    assert count_scores(session=session, model=model, since=T0) == 3 * len(rows)
