@@ -228,18 +228,20 @@ def insert_fresh_scores(
     at = _bound_time(conn.dialect, created_at)
     if not isinstance(at, str) or "'" in at:
         raise TypeError(f"unexpected SQLite time text {at!r}")
-    rows = list(zip(ids, inputs_json, eta, se_eta, probability, strict=True))
-    whole = len(rows) - len(rows) % _ROWS_PER_STATEMENT
+    columns = (ids, inputs_json, eta, se_eta, probability)
+    n = len(ids)
+    step, whole = _ROWS_PER_STATEMENT, n - n % _ROWS_PER_STATEMENT
     constants = (int(model_id), int(version_number), at)
-    if whole:
-        flat = [
-            tuple(itertools.chain.from_iterable(rows[i : i + _ROWS_PER_STATEMENT]))
-            for i in range(0, whole, _ROWS_PER_STATEMENT)
-        ]
-        sql = _fresh_sql(conn.dialect, _ROWS_PER_STATEMENT)
-        conn.exec_driver_sql(sql % (constants * _ROWS_PER_STATEMENT), flat)
-    if whole < len(rows):
-        conn.exec_driver_sql(_fresh_sql(conn.dialect, 1) % constants, rows[whole:])
+    # flat rows built slice by slice: no 10,000 row tuples alive at once for the GC to scan
+    flat = [
+        tuple(itertools.chain.from_iterable(zip(*(c[i : i + step] for c in columns), strict=True)))
+        for i in range(0, whole, step)
+    ]
+    if flat:
+        conn.exec_driver_sql(_fresh_sql(conn.dialect, step) % (constants * step), flat)
+    if whole < n:
+        rest = list(zip(*(c[whole:] for c in columns), strict=True))
+        conn.exec_driver_sql(_fresh_sql(conn.dialect, 1) % constants, rest)
 
 
 def checkpoint_wal(session: Session) -> None:

