@@ -230,6 +230,9 @@ class DaskObjective(Objective):
     def evaluate(self, coef: np.ndarray) -> State | None:
         return self.from_totals(coef, self.engine.totals(self.keep, coef))
 
+    def evaluate_without_information(self, coef: np.ndarray) -> State | None:
+        return self.from_totals(coef, self.engine.totals(self.keep, coef, want=False))
+
     def from_totals(self, coef: np.ndarray, t: Totals) -> State | None:
         if self.method != "firth":
             return super().from_totals(coef, t)

@@ -34,7 +34,7 @@ from .fit_options import fit_options
 from .likelihood import DataSummary, Totals, loglik_pass, scan
 from .newton import NewtonResult, Objective, State, newton
 from .row_sample import RowSample
-from .warm_start import sample_start, worth_a_start
+from .warm_start import SampleStart, first_state, sample_start, worth_a_start
 
 __all__ = [
     "LogisticFit",
@@ -173,16 +173,17 @@ def newton_from_scan(
     intercept_index: int | None,
     max_iter: int,
     tol: float,
-    start: np.ndarray | None = None,
+    start: SampleStart | None = None,
 ) -> NewtonResult:
     """Existence checks on the scan, then Newton from the intercept-only start (every engine).
 
     ``make_objective(penalty_mask)`` builds the engine's objective; the mask is 1 for every
     penalised coefficient (all but the intercept). Without an offset the start state comes from
-    the scan's sums, with no pass. A given ``start`` (p,) costs one pass and replaces the
-    intercept-only start when its penalised log-likelihood is higher (with an offset, whenever
-    it can be evaluated: the intercept-only start would cost a pass of its own, and Newton's
-    step-halving climbs from any start).
+    the scan's sums, with no pass. A ``start`` (the maximum on a sample of the rows) costs a
+    pass without and one with the information (:func:`~service.stats.warm_start.first_state`)
+    and replaces the intercept-only start when its penalised log-likelihood is higher (with an
+    offset, whenever it can be evaluated: the intercept-only start would cost a pass of its
+    own, and Newton's step-halving climbs from any start).
     """
     p = len(names)
     check_counts(summary, p)
@@ -192,7 +193,7 @@ def newton_from_scan(
     if intercept_index is not None:
         mask[intercept_index] = 0.0
     obj = make_objective(mask)
-    warm = None if start is None else obj.evaluate(np.asarray(start, dtype=np.float64))
+    warm = None if start is None else first_state(obj, start, summary.sum_weights)
     coef0 = np.zeros(p)
     if intercept_index is not None:
         coef0[intercept_index] = logit(summary.n_events / summary.sum_weights)

@@ -90,6 +90,10 @@ class Objective:
     def evaluate(self, coef: np.ndarray) -> State | None:
         return self.from_totals(coef, loglik_pass(self.blocks, coef))
 
+    def evaluate_without_information(self, coef: np.ndarray) -> State | None:
+        """Log-likelihood and score only (``info`` zeros; not for Firth: its score needs it)."""
+        return self.from_totals(coef, loglik_pass(self.blocks, coef, want_info=False))
+
 
 def newton(
     obj: Objective,

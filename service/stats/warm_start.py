@@ -26,7 +26,10 @@ the penalty's weight relative to the data, so the subsample maximiser is a diffe
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
+from scipy.linalg import LinAlgError, cho_factor, cho_solve
 from scipy.special import logit
 
 from service.errors import RiskfitError
@@ -34,12 +37,14 @@ from service.errors import RiskfitError
 from .blocks import BlockSource
 from .diagnostics import check_counts, check_rank
 from .likelihood import DataSummary, scan
-from .newton import Objective, newton
+from .newton import Objective, State, newton
 
 __all__ = [
     "SAMPLE_MAX_ITER",
     "SAMPLE_ROWS_PER_TERM",
     "WARM_START_MIN_ROWS",
+    "SampleStart",
+    "first_state",
     "sample_start",
     "worth_a_start",
 ]
@@ -55,10 +60,20 @@ def worth_a_start(summary: DataSummary, sampled_rows: int, p: int) -> bool:
     return summary.n_obs >= WARM_START_MIN_ROWS and sampled_rows >= SAMPLE_ROWS_PER_TERM * p
 
 
+@dataclass(frozen=True)
+class SampleStart:
+    """The maximum on the sample: ``coef`` (p,) and the information there, ``info`` (p, p),
+    as a sum over the sample's rows (``sample_weight`` their total weight)."""
+
+    coef: np.ndarray
+    info: np.ndarray
+    sample_weight: float
+
+
 def sample_start(
     sample: BlockSource, names: tuple[str, ...], intercept_index: int | None
-) -> np.ndarray | None:
-    """The maximum-likelihood estimate on ``sample`` (p,), or None if it is no good start.
+) -> SampleStart | None:
+    """The maximum-likelihood fit on ``sample``, or None if it is no good start.
 
     Call only after the full data passed :func:`service.stats.likelihood.scan`, so that the
     sample holds valid values.
@@ -82,4 +97,31 @@ def sample_start(
     res = newton(obj, state0, np.ones(p, bool), max_iter=SAMPLE_MAX_ITER, tol=1e-8)
     if not res.converged or res.state.n_extreme > 0 or not np.all(np.isfinite(res.state.coef)):
         return None
-    return res.state.coef
+    return SampleStart(res.state.coef, res.state.info, summary.sum_weights)
+
+
+def first_state(obj: Objective, start: SampleStart, sum_weights: float) -> State | None:
+    """Newton's first state on the full data: one chord step from the sample's maximum.
+
+    A pass without the information gives the full data's score ``g`` at ``start.coef``; the
+    step ``(n / m I_sample)^-1 g``, with the sample's information scaled to the full data's
+    total weight (``sum_weights / start.sample_weight``), takes out most of the sample's error
+    (the information of the sample differs from the full one by ``O(sqrt(p / m))``), so Newton
+    from there needs one step less than from ``start.coef``, for the price of a pass without
+    the information (about half a full one; measured on 1,000,000 x 21: 0.23 -> 0.19 s for
+    the Newton part; on 200,000 x 101: 0.34 -> 0.24 s). Falls back to a full pass at
+    ``start.coef`` when the step does not increase the log-likelihood (mle only: the ridge
+    and Firth objectives are not fitted from a sample, see the module docstring).
+    """
+    at_start = obj.evaluate_without_information(start.coef)
+    if at_start is not None:
+        scaled = start.info * (sum_weights / start.sample_weight)
+        try:
+            step = cho_solve(cho_factor(scaled, lower=True, check_finite=False), at_start.score)
+        except LinAlgError:
+            step = None
+        if step is not None and np.all(np.isfinite(step)):
+            state = obj.evaluate(start.coef + step)
+            if state is not None and state.penalized_loglik >= at_start.penalized_loglik:
+                return state
+    return obj.evaluate(start.coef)

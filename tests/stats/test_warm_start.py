@@ -13,6 +13,7 @@ from service.stats.row_sample import RowSample
 from service.stats.warm_start import (
     SAMPLE_ROWS_PER_TERM,
     WARM_START_MIN_ROWS,
+    first_state,
     sample_start,
     worth_a_start,
 )
@@ -134,3 +135,22 @@ def test_rare_column_separated_in_the_sample_gives_no_start() -> None:
     ref = sm.Logit(y, X).fit(method="newton", tol=1e-12, disp=False)  # statsmodels Logit Newton
     np.testing.assert_allclose(fit.coef, ref.params, rtol=1e-8, atol=1e-10)
     np.testing.assert_allclose(fit.std_error, ref.bse, rtol=1e-8)
+
+
+def test_the_chord_step_from_the_sample_lands_closer_to_the_maximum() -> None:
+    # first_state: one step with the sample's information scaled to the full weight. Here it
+    # must cut the distance to the full maximum (statsmodels Logit Newton) at least tenfold.
+    X, y = _data(51)
+    X = X[:, :5]
+    blocks = array_blocks(X, y)
+    sample = RowSample()
+    summary = scan(blocks, X.shape[1], NAMES[:5], sample)
+    start = sample_start(sample.source(), NAMES[:5], 0)
+    assert start is not None
+    obj = Objective(blocks, "mle", 0.0, np.r_[0.0, np.ones(4)])
+    state = first_state(obj, start, summary.sum_weights)
+    assert state is not None
+    best = sm.Logit(y, X).fit(method="newton", tol=1e-12, disp=False).params
+    before = np.max(np.abs(start.coef - best))
+    after = np.max(np.abs(state.coef - best))
+    assert after < before / 10, (before, after)
