@@ -4,7 +4,8 @@ Newton-Raphson converges quadratically near the maximum, so the passes it spends
 by how far away it starts. From the intercept-only start a fit on 1,000,000 rows x 21 terms
 takes five steps (six passes with the scan) and one on 200,000 x 101 seven; from the maximum
 on a systematic sample of the rows (:mod:`service.stats.row_sample`, taken during the scan:
-every 16th row, at most 65,536 rows) they take three and four, plus the pass at the start.
+every 16th row, at most 65,536 rows) and one chord step from there (:func:`first_state`)
+they take two and three.
 The sample estimate is ``O(1 / sqrt(m))`` from the full one for ``m`` sampled rows, whatever
 the number of rows ``n`` (about four standard errors of the full fit for ``n = 16 m``). That
 is inside the region where Newton's error squares at each step (Nocedal & Wright, *Numerical
