@@ -10,7 +10,8 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
-from operator import itemgetter, methodcaller
+from itertools import repeat
+from operator import contains, itemgetter, methodcaller
 from typing import Any
 
 import numpy as np
@@ -84,7 +85,9 @@ def records_input(records: Sequence[Mapping[str, Any]], names: Sequence[str]) ->
         cols: dict[str, Any] = {name: list(map(itemgetter(name), records)) for name in names}
     except KeyError:
         cols = columns_from_rows(records, names, "records")  # names the first record lacking one
-    keys = record_keys(list(map(methodcaller("get", KEY_FIELD), records)), "records")
+    keys = None  # most batches carry no keys: one C-level pass finds that out
+    if any(map(contains, records, repeat(KEY_FIELD))):
+        keys = record_keys(list(map(methodcaller("get", KEY_FIELD), records)), "records")
     return ScoreInput(cols, keys, len(records), lambda name, i: f"records[{i}].{name}", "records")
 
 

@@ -12,6 +12,7 @@ exists only after the score-log rows are committed.
 from __future__ import annotations
 
 import json
+from itertools import repeat
 from typing import Any, NoReturn
 
 import orjson
@@ -73,9 +74,9 @@ def _parse(raw: bytes, parsed: Any = _UNPARSED) -> tuple[ScoreOptions, Any, bool
     if records is not None:
         if not isinstance(records, list) or not records:
             _invalid(("records",), "records must be a non-empty list of objects", records)
-        for i, r in enumerate(records):
-            if not isinstance(r, dict):
-                _invalid(("records", i), "a record must be a JSON object", r)
+        if not all(map(isinstance, records, repeat(dict))):  # one C-level pass when all are
+            i, r = next((i, r) for i, r in enumerate(records) if not isinstance(r, dict))
+            _invalid(("records", i), "a record must be a JSON object", r)
         # A nested value needs a bracket of its own: when the body has no more brackets than
         # its structure, nothing is nested (a bracket inside a string only costs the scan).
         if raw.count(b"[") > 1 or raw.count(b"{") > len(records) + 1:
