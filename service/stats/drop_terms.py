@@ -213,10 +213,10 @@ def _chord_refits(
     for _ in range(_DROP_MAX_STEPS):
         if not active:
             break
-        ll, scores, extreme = score_pass(blocks, np.column_stack([c.coef for c in active]))
+        ll, scores = score_pass(blocks, np.column_stack([c.coef for c in active]))
         running = []
         for j, c in enumerate(active):
-            totals = Totals(float(ll[j]), scores[:, j].copy(), no_info, int(extreme[j]))
+            totals = Totals(float(ll[j]), scores[:, j].copy(), no_info, 0)
             state = obj.from_totals(c.coef, totals)
             if state is None or state.penalized_loglik < c.floor:
                 continue

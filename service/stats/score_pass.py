@@ -19,7 +19,7 @@ import numpy as np
 
 from .blocks import Block, BlockSource
 from .lanes import LANES, lane_slices, run_lanes
-from .likelihood import EXTREME_ETA, chunk_rows, chunks, rows
+from .likelihood import chunk_rows, chunks, rows
 
 __all__ = ["score_pass"]
 
@@ -30,8 +30,10 @@ class _ScoreSums:
     def __init__(self, p: int, k: int) -> None:
         self.loglik = np.zeros(k)
         self.score = np.zeros((p, k))
-        self.n_extreme = np.zeros(k, dtype=np.int64)
-        self.size = chunk_rows(p)
+        # a chunk's (m, k) temporaries stay at chunk_rows(p) * 8 bytes or less, as in
+        # loglik_pass: larger ones come from fresh pages of the allocator each time
+        self.size = max(256, chunk_rows(p) // (1 << max(k - 1, 0).bit_length()))
+        self._ones = np.ones(self.size)
 
     def add(self, block: Block, C: np.ndarray) -> None:
         for b in chunks(block, self.size):
@@ -43,25 +45,28 @@ class _ScoreSums:
         E = np.dot(X, C)
         if b.offset is not None:
             E += b.offset[:, None]
-        a = np.abs(E)
-        e = np.exp(np.negative(a))
-        M = np.where(E >= 0, 1.0, e)
-        M /= 1.0 + e
-        R = y - M
+        e = np.abs(E)
+        np.negative(e, out=e)
+        np.exp(e, out=e)  # exp(-|E|)
+        M = np.negative(E)  # expit(E) = 1 / (1 + exp(-E)); exp(-E) = inf gives 0, as it should
+        with np.errstate(over="ignore"):
+            np.exp(M, out=M)
+        M += 1.0
+        np.reciprocal(M, out=M)
+        R = np.subtract(y, M, out=M)
         lp = y * E
         lp -= np.maximum(E, 0.0)
         lp -= np.log1p(e)
-        if w is None:
-            self.loglik += lp.sum(axis=0)
+        if w is None:  # column sums as a product: numpy's axis-0 sum of an (m, k) array is slow
+            self.loglik += np.dot(self._ones[: X.shape[0]], lp)
         else:
             self.loglik += np.dot(w, lp)
             R *= w[:, None]
         self.score += np.dot(X.T, R)
-        self.n_extreme += np.count_nonzero(a > EXTREME_ETA, axis=0)
 
 
-def score_pass(blocks: BlockSource, C: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """``(loglik (k,), score (p, k), n_extreme (k,))`` at the columns of ``C`` (p, k).
+def score_pass(blocks: BlockSource, C: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``(loglik (k,), score (p, k))`` at the columns of ``C`` (p, k).
 
     Column ``j`` equals ``loglik_pass(blocks, C[:, j], want_info=False)``'s log-likelihood
     and score up to rounding (tests/stats/test_score_pass.py).
@@ -73,4 +78,4 @@ def score_pass(blocks: BlockSource, C: np.ndarray) -> tuple[np.ndarray, np.ndarr
         tasks = [partial(lanes[i].add, rows(block, sl), C) for i, sl in enumerate(parts)]
         run_lanes(tasks, n_terms=p)
     a, b = lanes
-    return a.loglik + b.loglik, a.score + b.score, a.n_extreme + b.n_extreme
+    return a.loglik + b.loglik, a.score + b.score
