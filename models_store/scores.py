@@ -251,10 +251,9 @@ def checkpoint_wal(session: Session) -> None:
     waits; the score writer calls this after answering. In a transaction of its own that
     reads nothing (a checkpoint cannot follow a read in one). Elsewhere a no-op.
     """
-    conn = session.connection()
-    if conn.dialect.name == "sqlite":
-        conn.exec_driver_sql("PRAGMA wal_checkpoint(PASSIVE)")
-    session.commit()
+    if session.get_bind().dialect.name == "sqlite":
+        session.connection().exec_driver_sql("PRAGMA wal_checkpoint(PASSIVE)")
+        session.commit()
 
 
 def _bound_time(dialect: Dialect, created_at: datetime) -> Any:
