@@ -12,9 +12,7 @@ import orjson
 
 __all__ = ["inputs_json", "new_score_ids"]
 
-_HEX = np.frombuffer(b"0123456789abcdef", dtype=np.uint8)
-_DASHES = (8, 13, 18, 23)
-_HEX_AT = np.array([i for i in range(36) if i not in _DASHES])
+_GROUPS = ((0, 8, 0), (9, 13, 8), (14, 18, 12), (19, 23, 16), (24, 36, 20))  # text <- hex at
 _FEW_IDS = 16
 
 
@@ -32,13 +30,13 @@ def new_score_ids(n: int) -> list[str]:
     raw[:, :6] = np.frombuffer(ms.to_bytes(6, "big"), dtype=np.uint8)
     raw[:, 6] = (raw[:, 6] & 0x0F) | 0x70
     raw[:, 8] = (raw[:, 8] & 0x3F) | 0x80
-    raw = np.sort(raw.view("S16").ravel()).view(np.uint8).reshape(n, 16)
-    nibbles = np.empty((n, 32), dtype=np.uint8)
-    nibbles[:, 0::2] = raw >> 4
-    nibbles[:, 1::2] = raw & 0x0F
+    raw = np.sort(raw.view("S16").ravel())
+    hexed = np.frombuffer(raw.tobytes().hex().encode("ascii"), dtype=np.uint8).reshape(n, 32)
     text = np.full((n, 36), ord("-"), dtype=np.uint8)
-    text[:, _HEX_AT] = _HEX[nibbles]
-    return text.view("S36").ravel().astype("U36").tolist()
+    for start, stop, at in _GROUPS:  # 8-4-4-4-12 hex digits between the dashes
+        text[:, start:stop] = hexed[:, at : at + stop - start]
+    whole = text.tobytes().decode("ascii")
+    return [whole[i : i + 36] for i in range(0, 36 * n, 36)]
 
 
 def _uuid7_text(ms: int) -> str:

@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import threading
+import time
 import uuid
 from datetime import UTC, datetime
 from typing import Any
 
+import pytest
 from sqlalchemy import select
 
 from models_store.models import require_model
@@ -116,3 +118,17 @@ def test_used_key_is_refused_through_the_api(api: ApiClient) -> None:
     r = api.post(SCORE, json=body)
     assert r.status_code == 409 and r.json()["error"]["details"]["keys"] == ["taken"]
     assert row_count(api, "score") == 1
+
+
+@pytest.mark.parametrize("n", [1, 16, 17, 5000])  # the plain-bytes and the numpy paths
+def test_score_ids_are_ascending_version_7_uuids(n: int) -> None:
+    # Checked with the standard library's uuid module (RFC 9562 layout: version 7, variant
+    # 10xx, 48-bit Unix milliseconds first).
+    before = time.time_ns() // 1_000_000
+    ids = new_score_ids(n)
+    after = time.time_ns() // 1_000_000
+    assert ids == sorted(ids) and len(set(ids)) == n
+    for text in ids:
+        u = uuid.UUID(text)
+        assert str(u) == text and u.version == 7 and u.variant == uuid.RFC_4122
+        assert before <= u.int >> 80 <= after
