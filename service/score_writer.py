@@ -45,6 +45,7 @@ from sqlalchemy.orm import Session
 from models_store.champions import model_with_champion
 from models_store.orm import RiskModel
 from models_store.scores import (
+    ScoreBatch,
     ScoreParams,
     add_score_batch,
     checkpoint_wal,
@@ -98,11 +99,9 @@ class ScoreRows:
     created_at: datetime
     checks_champion: bool = False  # scored with the champion: must still be it at commit
 
-    def params(self, session: Session) -> list[ScoreParams]:
-        """The rows as driver parameters (:func:`models_store.scores.score_rows_params`)."""
-        return score_rows_params(
-            dialect=session.get_bind().dialect,
-            model_id=self.model.id,
+    def columns(self) -> ScoreBatch:
+        """The rows by column, as the store's insert functions take them."""
+        return ScoreBatch(
             version_number=self.version_number,
             ids=self.ids,
             keys=self.keys,
@@ -113,19 +112,13 @@ class ScoreRows:
             created_at=self.created_at,
         )
 
+    def params(self, session: Session) -> list[ScoreParams]:
+        """The rows as driver parameters (:func:`models_store.scores.score_rows_params`)."""
+        dialect = session.get_bind().dialect
+        return score_rows_params(dialect=dialect, model_id=self.model.id, **self.columns())
+
     def insert(self, session: Session) -> None:
-        add_score_batch(
-            session=session,
-            model=self.model,
-            version_number=self.version_number,
-            ids=self.ids,
-            keys=self.keys,
-            inputs_json=self.inputs_json,
-            eta=self.eta,
-            se_eta=self.se_eta,
-            probability=self.probability,
-            created_at=self.created_at,
-        )
+        add_score_batch(session=session, model=self.model, **self.columns())
 
 
 def check_champion(

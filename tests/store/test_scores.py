@@ -26,6 +26,7 @@ from models_store import (
     scores_with_outcomes,
 )
 from models_store.scores import (
+    ScoreBatch,
     checkpoint_wal,
     insert_fresh_scores,
     insert_score_params,
@@ -187,12 +188,20 @@ def test_fresh_and_merged_inserts_store_what_add_scores_stores(
     # (score_rows_params + insert_score_params): identical stored columns.
     rows = _rows(305, seed=4)  # 3 multi-row statements and 5 single rows on SQLite
     ids = [new_score_id() for _ in rows]
-    columns = {
-        "inputs_json": [orjson.dumps(r["inputs"]).decode() for r in rows],
-        "eta": [r["eta"] for r in rows],
-        "se_eta": [r["se_eta"] for r in rows],
-        "probability": [r["probability"] for r in rows],
-    }
+    eta, se, p = ([float(r[c]) for r in rows] for c in ("eta", "se_eta", "probability"))  # type: ignore[arg-type]
+
+    def batch(prefix: str) -> ScoreBatch:
+        return ScoreBatch(
+            version_number=1,
+            ids=[prefix + i[1:] for i in ids],
+            keys=None,
+            inputs_json=[orjson.dumps(r["inputs"]).decode() for r in rows],
+            eta=eta,
+            se_eta=se,
+            probability=p,
+            created_at=T0,
+        )
+
     add_scores(
         session=session,
         model=model,
@@ -200,23 +209,8 @@ def test_fresh_and_merged_inserts_store_what_add_scores_stores(
         rows=[{**r, "id": f"a{i[1:]}"} for r, i in zip(rows, ids, strict=True)],
         created_at=T0,
     )
-    insert_fresh_scores(
-        session=session,
-        model_id=model.id,
-        version_number=1,
-        created_at=T0,
-        ids=[f"b{i[1:]}" for i in ids],
-        **columns,  # type: ignore[arg-type]
-    )
-    params = score_rows_params(
-        dialect=session.get_bind().dialect,
-        model_id=model.id,
-        version_number=1,
-        ids=[f"c{i[1:]}" for i in ids],
-        keys=None,
-        created_at=T0,
-        **columns,  # type: ignore[arg-type]
-    )
+    insert_fresh_scores(session=session, model_id=model.id, **batch("b"))
+    params = score_rows_params(dialect=session.get_bind().dialect, model_id=model.id, **batch("c"))
     insert_score_params(session=session, params=params)
     session.commit()
     checkpoint_wal(session)  # SQLite: the log copied into the database file; else a no-op
