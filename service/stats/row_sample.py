@@ -73,7 +73,23 @@ class RowSample:
         self._pieces, self.rows, self.stride = pieces, rows, wider
 
     def source(self) -> BlockSource:
-        """The sample as a block source (its pieces, in row order)."""
+        """The sample as a block source: one block of the rows in order (the pieces joined, so
+        that a pass over it makes few numpy calls and can split into two lanes)."""
+        if len(self._pieces) > 1:
+            parts = [p.block for p in self._pieces]
+
+            def join(field: int, fill: float) -> np.ndarray | None:
+                cols = [b[field] for b in parts]
+                if all(c is None for c in cols):
+                    return None  # a block without weights (offset) has all ones (zeros)
+                pairs = zip(parts, cols, strict=True)
+                full = [np.full(b.y.size, fill) if c is None else c for b, c in pairs]
+                return np.concatenate(full)
+
+            y = np.concatenate([b.y for b in parts])
+            X = np.concatenate([b.X for b in parts])
+            whole = Block(X, y, join(2, 1.0), join(3, 0.0))
+            self._pieces = [_Piece(self._pieces[0].first, whole)]
         blocks = [p.block for p in self._pieces]
 
         def gen() -> Iterator[Block]:

@@ -53,6 +53,10 @@ __all__ = [
 WARM_START_MIN_ROWS = 131_072  # below this a fit takes a few tens of ms; no start is sought
 SAMPLE_ROWS_PER_TERM = 100  # and no start from a sample with fewer rows per term
 SAMPLE_MAX_ITER = 25
+# Tight, although the estimate is some standard errors from the full maximum anyway: with
+# separation in the sample the coefficients drift and Newton never meets this tolerance, which
+# is how such a sample is refused (a looser one stops on the drift).
+SAMPLE_TOL = 1e-8
 
 
 def worth_a_start(summary: DataSummary, sampled_rows: int, p: int) -> bool:
@@ -95,7 +99,7 @@ def sample_start(
     state0 = obj.evaluate(coef0)
     if state0 is None:
         return None
-    res = newton(obj, state0, np.ones(p, bool), max_iter=SAMPLE_MAX_ITER, tol=1e-8)
+    res = newton(obj, state0, np.ones(p, bool), max_iter=SAMPLE_MAX_ITER, tol=SAMPLE_TOL)
     if not res.converged or res.state.n_extreme > 0 or not np.all(np.isfinite(res.state.coef)):
         return None
     return SampleStart(res.state.coef, res.state.info, summary.sum_weights)
