@@ -298,26 +298,30 @@ class _PassSums:
         eta = np.dot(X, coef)
         if b.offset is not None:
             eta += b.offset
-        a = np.abs(eta)
-        e = np.exp(np.negative(a))
-        d = 1.0 + e
-        mu = np.where(eta >= 0, 1.0, e)
-        mu /= d
-        resid = y - mu
-        # y eta - log(1 + exp(eta)) = (y eta - max(eta, 0)) - log1p(e); both parts <= 0
-        lp = y * eta
-        lp -= np.maximum(eta, 0.0)
-        lp -= np.log1p(e)
+        e = np.abs(eta)
+        self.n_extreme += int(np.count_nonzero(e > EXTREME_ETA))
+        np.negative(e, out=e)
+        np.exp(e, out=e)  # e = exp(-|eta|)
+        mu = np.negative(eta)
+        with np.errstate(over="ignore"):  # exp(-eta) = inf gives mu = 0, as it should
+            np.exp(mu, out=mu)
+        mu += 1.0
+        np.reciprocal(mu, out=mu)  # expit(eta), accurate in both tails
+        resid = np.subtract(y, mu, out=mu)
+        # y eta - log(1 + exp(eta)) = y eta - max(eta, 0) - log1p(e)
         if w is None:
-            self.loglik += float(lp.sum())
+            self.loglik += float(np.dot(y, eta))
+            self.loglik -= float(np.maximum(eta, 0.0).sum()) + float(np.log1p(e).sum())
         else:
+            lp = y * eta
+            lp -= np.maximum(eta, 0.0)
+            lp -= np.log1p(e)
             self.loglik += float(np.dot(w, lp))
             resid *= w
         self.score += np.dot(X.T, resid)
-        self.n_extreme += int(np.count_nonzero(a > EXTREME_ETA))
         if self.want_info:
             sw = np.sqrt(e)
-            sw /= d
+            sw /= 1.0 + e  # sqrt(mu (1 - mu)) = sqrt(e) / (1 + e)
             if w is not None:
                 sw *= np.sqrt(w)
             m = X.shape[0]
@@ -329,9 +333,10 @@ class _PassSums:
 def loglik_pass(blocks: BlockSource, coef: np.ndarray, *, want_info: bool = True) -> Totals:
     """One fused pass: log-likelihood, score and information at ``coef``.
 
-    With ``e = exp(-|eta|)``: ``mu = (1 if eta >= 0 else e) / (1 + e)``,
-    ``log(1 + exp(eta)) = max(eta, 0) + log1p(e)`` and ``mu (1 - mu) = e / (1 + e)^2``,
-    one exponential per row and accurate in both tails. Two lanes of partial sums
+    With ``e = exp(-|eta|)``: ``log(1 + exp(eta)) = max(eta, 0) + log1p(e)`` and
+    ``mu (1 - mu) = e / (1 + e)^2``; ``mu = 1 / (1 + exp(-eta))``. All accurate in both tails
+    (two exponentials per row: cheaper than selecting between ``e / (1 + e)`` and
+    ``1 / (1 + e)`` with ``np.where``). Two lanes of partial sums
     (:mod:`service.stats.lanes`) share the rows of each block.
     """
     p = coef.shape[0]
