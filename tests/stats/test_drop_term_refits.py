@@ -102,7 +102,8 @@ def test_passes_without_information_keep_the_statistics(
     for name, cols in GROUPS.items():
         cold = constrained_fit(blocks, fit, dict.fromkeys(cols, 0.0), tol=1e-12)
         want = 2.0 * (fit.penalized_loglik - cold.penalized_loglik)
-        assert got[name] == pytest.approx(want, rel=1e-10, abs=1e-8), name
+        # chord refits stop at a decrement of 5e-9 of the statistic: right to ~2e-9 of it
+        assert got[name] == pytest.approx(want, rel=2e-9, abs=1e-8), name
     if method == "mle":
         full = sm.Logit(y, X).fit(method="newton", tol=1e-12, disp=0).llf
         for name, cols in GROUPS.items():
