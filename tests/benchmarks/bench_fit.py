@@ -52,7 +52,7 @@ def main() -> None:
     ap.add_argument("--n", type=int, default=1_000_000)
     ap.add_argument("--p", type=int, default=20)
     ap.add_argument("--wide", action="store_true", help="n = 200,000 x 100 features")
-    ap.add_argument("--block-rows", type=int, default=65536, help="rows per block (the engine default)")
+    ap.add_argument("--block-rows", type=int, default=65536, help="rows per block (engine default)")
     ap.add_argument("--repeat", type=int, default=2, help="best of this many runs of each solver")
     ap.add_argument("--seed", type=int, default=20240601)
     ap.add_argument("--threads", type=int, default=2, help="threads per riskfit pass (1 or 2)")
