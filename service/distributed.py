@@ -125,6 +125,11 @@ def _load(part: Partition) -> list[Block]:
     return list(part()())
 
 
+def _cross(s: DataSummary) -> np.ndarray:
+    assert s.xtwx is not None  # the partitions' scans keep their cross-products
+    return s.xtwx
+
+
 def _scan(
     part: Any, p: int, names: tuple[str, ...], sample_rows: int
 ) -> tuple[DataSummary, list[Block]]:
@@ -187,9 +192,10 @@ class DaskEngine:
             float(sum(s.sum_weights for s in parts)),
             float(sum(s.n_events for s in parts)),
             any(s.has_offset for s in parts),
-            sum((s.xtwx for s in parts), np.zeros_like(parts[0].xtwx)),
+            sum((_cross(s) for s in parts), np.zeros_like(_cross(parts[0]))),
             sum((s.xtw for s in parts), np.zeros_like(parts[0].xtw)),
             sum((s.xtwy for s in parts), np.zeros_like(parts[0].xtwy)),
+            sum((s.sum_wx2 for s in parts), np.zeros_like(parts[0].sum_wx2)),
         )
 
     def totals(self, keep: Sequence[int] | None, coef: np.ndarray, want: bool = True) -> Totals:

@@ -163,7 +163,7 @@ def check_separation(
     """
     p = coef.shape[0]
     mean = summary.xtw / summary.sum_weights
-    var = np.clip(np.diag(summary.xtwx) / summary.sum_weights - mean**2, 0.0, None)
+    var = np.clip(summary.sum_wx2 / summary.sum_weights - mean**2, 0.0, None)
     sd = np.where(var > 0, np.sqrt(var), 1.0)
     scaled_se = np.where(np.isfinite(std_error), std_error * sd, np.inf)
     if intercept_index is not None:

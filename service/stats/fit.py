@@ -34,7 +34,13 @@ from .fit_options import fit_options
 from .likelihood import DataSummary, Totals, loglik_pass, scan
 from .newton import NewtonResult, Objective, State, newton
 from .row_sample import RowSample
-from .warm_start import SampleStart, first_state, sample_start, worth_a_start
+from .warm_start import (
+    WARM_START_MIN_ROWS,
+    SampleStart,
+    first_state,
+    sample_start,
+    worth_a_start,
+)
 
 __all__ = [
     "LogisticFit",
@@ -83,6 +89,7 @@ def _start_totals(s: DataSummary, coef: np.ndarray, intercept_index: int | None)
     a = 0.0 if intercept_index is None else float(coef[intercept_index])
     mu = 1.0 / (1.0 + np.exp(-a))
     loglik = s.n_events * a - s.sum_weights * float(np.logaddexp(0.0, a))
+    assert s.xtwx is not None  # a scan with cross-products
     return Totals(loglik, s.xtwy - mu * s.xtw, mu * (1.0 - mu) * s.xtwx, 0)
 
 
@@ -124,11 +131,16 @@ def fit_logistic_blocks(
     intercept_index: int | None = 0,
     max_iter: int = 100,
     tol: float = 1e-10,
+    many_rows: bool = False,
 ) -> LogisticFit:
     """Fit by Newton-Raphson over a block source (see module docstring for definitions).
 
     Maximum-likelihood fits of many rows start from the fit on a systematic sample of them,
     taken during the scan (:mod:`service.stats.warm_start`), when that is the better start.
+    ``many_rows`` (the caller knows there are at least
+    :data:`~service.stats.warm_start.WARM_START_MIN_ROWS`): the scan then skips the
+    cross-products, which the sample start does without (its rank check runs on the first full
+    pass); should the sample give no start, a second scan computes them.
 
     Raises SingleClassError, TooFewObservationsError, RankDeficientError,
     SeparationError (``details["terms"]``; mle only), DataError, SpecError.
@@ -136,10 +148,13 @@ def fit_logistic_blocks(
     """
     names = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
     sample = RowSample() if method == "mle" else None
-    summary = scan(blocks, n_terms, names, sample)
+    light = sample is not None and many_rows
+    summary = scan(blocks, n_terms, names, sample, cross_products=not light)
     start = None
     if sample is not None and worth_a_start(summary, sample.rows, n_terms):
         start = sample_start(sample.source(), names, intercept_index)
+    if summary.xtwx is None and start is None:
+        summary = scan(blocks, n_terms, names)  # the intercept-only start needs X' W X
     res = newton_from_scan(
         lambda mask: Objective(blocks, method, ridge_lambda, mask),
         summary,
@@ -187,13 +202,26 @@ def newton_from_scan(
     """
     p = len(names)
     check_counts(summary, p)
-    if method != "ridge" or ridge_lambda == 0:
+    rank_checked = summary.xtwx is not None
+    if rank_checked and (method != "ridge" or ridge_lambda == 0):
+        assert summary.xtwx is not None
         check_rank(summary.xtwx, names)
     mask = np.ones(p)
     if intercept_index is not None:
         mask[intercept_index] = 0.0
     obj = make_objective(mask)
     warm = None if start is None else first_state(obj, start, summary.sum_weights)
+    if not rank_checked:  # a scan without cross-products: the rank check on X' W X at the start
+        if warm is None:
+            raise RankDeficientError(
+                "the information matrix is singular at the start",
+                field="X",
+                value=list(names),
+                remedy="remove redundant terms",
+                details={"terms": list(names)},
+            )
+        check_rank(warm.info, names)
+        return newton(obj, warm, np.ones(p, bool), max_iter=max_iter, tol=tol)
     coef0 = np.zeros(p)
     if intercept_index is not None:
         coef0[intercept_index] = logit(summary.n_events / summary.sum_weights)
@@ -300,6 +328,7 @@ def fit_logistic(
 ) -> LogisticFit:
     """:func:`fit_logistic_blocks` over in-memory arrays (X (n, p), y (n,) in {0, 1})."""
     blocks = array_blocks(X, y, weights, offset, block_rows)
+    many = np.ndim(X) == 2 and np.shape(X)[0] >= WARM_START_MIN_ROWS
     return fit_logistic_blocks(
         blocks,
         n_terms=np.shape(X)[1] if np.ndim(X) == 2 else 0,
@@ -309,6 +338,7 @@ def fit_logistic(
         intercept_index=intercept_index,
         max_iter=max_iter,
         tol=tol,
+        many_rows=many,
     )
 
 

@@ -86,9 +86,10 @@ class DataSummary:
     sum_weights: float
     n_events: float  # sum of w * y
     has_offset: bool
-    xtwx: np.ndarray  # X' diag(w) X (p, p)
+    xtwx: np.ndarray | None  # X' diag(w) X (p, p); None after a scan without cross-products
     xtw: np.ndarray  # X' w (p,)
     xtwy: np.ndarray  # X' (w y) (p,)
+    sum_wx2: np.ndarray  # sum_i w_i x_ij^2, the diagonal of X' diag(w) X (p,)
 
 
 def _bad_row(mask: np.ndarray) -> int:
@@ -199,8 +200,10 @@ def chunks(b: Block, size: int) -> Iterator[Block]:
 class _ScanSums:
     """One lane's share of the first pass."""
 
-    def __init__(self, p: int) -> None:
+    def __init__(self, p: int, cross_products: bool) -> None:
+        self.cross_products = cross_products
         self.xtwx = np.zeros((p, p))
+        self.sum_wx2 = np.zeros(p)
         self.xtw = np.zeros(p)
         self.xtwy = np.zeros(p)
         self.n_pos = 0
@@ -213,7 +216,9 @@ class _ScanSums:
             self._sums(block, chunk_rows(len(term_names)))
 
     def _sums(self, block: Block, size: int) -> None:
-        wy = np.empty((min(size, block.X.shape[0]), 2))  # columns w and w * y
+        m0 = min(size, block.X.shape[0])
+        wy = np.empty((m0, 2))  # columns w and w * y
+        square = None if self.cross_products else np.empty((m0, block.X.shape[1]))
         for b in chunks(block, size):
             m = b.X.shape[0]
             cols = wy[:m]
@@ -221,13 +226,17 @@ class _ScanSums:
                 self.n_pos += m
                 cols[:, 0] = 1.0
                 cols[:, 1] = b.y
+            else:
+                self.n_pos += int(np.count_nonzero(b.weights > 0))
+                cols[:, 0] = b.weights
+                np.multiply(b.weights, b.y, out=cols[:, 1])
+            if square is not None:  # the diagonal only: sum_i w_i x_ij^2
+                sq = np.multiply(b.X, b.X, out=square[:m])
+                self.sum_wx2 += np.dot(cols[:, 0], sq)
+            elif b.weights is None:
                 self.xtwx += np.dot(b.X.T, b.X)  # dsyrk, GIL released (module docstring)
             else:
-                w = b.weights
-                self.n_pos += int(np.count_nonzero(w > 0))
-                cols[:, 0] = w
-                np.multiply(w, b.y, out=cols[:, 1])
-                Xs = b.X * np.sqrt(w)[:, None]
+                Xs = b.X * np.sqrt(b.weights)[:, None]
                 self.xtwx += np.dot(Xs.T, Xs)
             sums = cols.sum(axis=0)
             self.sum_w += float(sums[0])
@@ -238,14 +247,22 @@ class _ScanSums:
 
 
 def scan(
-    blocks: BlockSource, p: int, term_names: tuple[str, ...], sample: RowSample | None = None
+    blocks: BlockSource,
+    p: int,
+    term_names: tuple[str, ...],
+    sample: RowSample | None = None,
+    *,
+    cross_products: bool = True,
 ) -> DataSummary:
     """First pass: validate every block and collect counts and weighted cross-products.
 
     ``sample``, if given, receives every block after it passed the checks (a systematic sample
-    of the rows for a start, :mod:`service.stats.warm_start`).
+    of the rows for a start, :mod:`service.stats.warm_start`). With ``cross_products=False``
+    the pass skips ``X' diag(w) X`` (``xtwx`` is None) and sums only its diagonal, about half
+    the work with many terms: for a fit that starts from a sample, whose rank check then runs
+    on the information of its first full pass.
     """
-    lanes = [_ScanSums(p) for _ in range(LANES)]
+    lanes = [_ScanSums(p, cross_products) for _ in range(LANES)]
     n_obs = 0
     has_offset = False
     for block in blocks():
@@ -259,22 +276,29 @@ def scan(
             ],
             n_terms=p,
         )
-        if not all(np.isfinite(lane.xtwx).all() for lane in lanes):
+        if not all(np.isfinite(_diag_of(lane)).all() for lane in lanes):
             _check_x(block, n_obs, term_names)  # raises: the first bad value from this block on
         if sample is not None:
             sample.add(block, n_obs)
         n_obs += block.X.shape[0]
     a, b = lanes
+    xtwx = a.xtwx + b.xtwx if cross_products else None
     return DataSummary(
         n_obs,
         a.n_pos + b.n_pos,
         a.sum_w + b.sum_w,
         a.events + b.events,
         has_offset,
-        a.xtwx + b.xtwx,
+        xtwx,
         a.xtw + b.xtw,
         a.xtwy + b.xtwy,
+        np.diag(xtwx).copy() if xtwx is not None else a.sum_wx2 + b.sum_wx2,
     )
+
+
+def _diag_of(lane: _ScanSums) -> np.ndarray:
+    """The lane's diagonal of X' diag(w) X so far (non-finite when X holds a bad value)."""
+    return np.diagonal(lane.xtwx) if lane.cross_products else lane.sum_wx2
 
 
 class _PassSums:

@@ -87,6 +87,7 @@ def sample_start(
     try:
         summary = scan(sample, p, names)
         check_counts(summary, p)
+        assert summary.xtwx is not None  # a scan with cross-products
         check_rank(summary.xtwx, names)
     except RiskfitError:
         return None

@@ -154,3 +154,31 @@ def test_the_chord_step_from_the_sample_lands_closer_to_the_maximum() -> None:
     before = np.max(np.abs(start.coef - best))
     after = np.max(np.abs(state.coef - best))
     assert after < before / 10, (before, after)
+
+
+def test_light_scan_keeps_the_diagonal_and_the_checks() -> None:
+    # A fit of many rows scans without X'WX (only its diagonal); the diagonal must equal the
+    # full scan's, and the full-data checks must still name the first bad value and the
+    # collinear terms (here found again by the second, full scan after the sample is refused).
+    import pytest
+
+    from service.errors import DataError, RankDeficientError
+
+    X, y = _data(61)
+    X = X[:, :5]
+    w = np.random.default_rng(62).random(N) * 2.0
+    full = scan(array_blocks(X, y, w), 5, NAMES[:5])
+    light = scan(array_blocks(X, y, w), 5, NAMES[:5], cross_products=False)
+    assert light.xtwx is None and full.xtwx is not None
+    np.testing.assert_allclose(light.sum_wx2, np.diag(full.xtwx), rtol=1e-12)
+    np.testing.assert_allclose(light.xtw, full.xtw, rtol=1e-12)
+    bad = X.copy()
+    bad[200_001, 3] = np.nan
+    bad[250_000, 1] = np.inf
+    with pytest.raises(DataError) as err:
+        fit_logistic(bad, y, weights=w)
+    assert err.value.field == "X[200001, 3]"
+    twin = np.column_stack([X, 2.0 * X[:, 2]])  # x5 = 2 x2: rank deficient
+    with pytest.raises(RankDeficientError) as rank:
+        fit_logistic(twin, y, term_names=[*NAMES[:5], "twice_x2"])
+    assert {"x2", "twice_x2"} <= set(rank.value.details["terms"])
