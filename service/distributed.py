@@ -43,7 +43,7 @@ from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import Objective, State, newton
 from service.stats.row_sample import MAX_ROWS as MAX_SAMPLE_ROWS
 from service.stats.row_sample import RowSample
-from service.stats.warm_start import sample_start, worth_a_start
+from service.stats.warm_start import start_for
 
 __all__ = ["DaskEngine", "FilePartition", "connect", "file_partitions", "fit_logistic_dask"]
 
@@ -296,10 +296,8 @@ def fit_logistic_dask(
     """
     names = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
     summary, sample = engine.scan_and_sample(n_terms, names)
-    start = None
-    sampled = sum(b.X.shape[0] for b in sample)
-    if method == "mle" and worth_a_start(summary, sampled, n_terms):
-        start = sample_start(lambda: iter(sample), names, intercept_index)  # at the client
+    sampled = sum(b.X.shape[0] for b in sample)  # fitted at the client
+    start = start_for(method, summary, lambda: iter(sample), sampled, names, intercept_index)
     res = newton_from_scan(
         lambda mask: DaskObjective(engine, None, method, ridge_lambda, mask),
         summary,

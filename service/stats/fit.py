@@ -38,8 +38,7 @@ from .warm_start import (
     WARM_START_MIN_ROWS,
     SampleStart,
     first_state,
-    sample_start,
-    worth_a_start,
+    start_for,
 )
 
 __all__ = [
@@ -151,8 +150,8 @@ def fit_logistic_blocks(
     light = sample is not None and many_rows
     summary = scan(blocks, n_terms, names, sample, cross_products=not light)
     start = None
-    if sample is not None and worth_a_start(summary, sample.rows, n_terms):
-        start = sample_start(sample.source(), names, intercept_index)
+    if sample is not None:
+        start = start_for(method, summary, sample.source(), sample.rows, names, intercept_index)
     if summary.xtwx is None and start is None:
         summary = scan(blocks, n_terms, names)  # the intercept-only start needs X' W X
     res = newton_from_scan(
@@ -202,24 +201,16 @@ def newton_from_scan(
     """
     p = len(names)
     check_counts(summary, p)
-    rank_checked = summary.xtwx is not None
-    if rank_checked and (method != "ridge" or ridge_lambda == 0):
-        assert summary.xtwx is not None
+    if summary.xtwx is not None and (method != "ridge" or ridge_lambda == 0):
         check_rank(summary.xtwx, names)
     mask = np.ones(p)
     if intercept_index is not None:
         mask[intercept_index] = 0.0
     obj = make_objective(mask)
     warm = None if start is None else first_state(obj, start, summary.sum_weights)
-    if not rank_checked:  # a scan without cross-products: the rank check on X' W X at the start
+    if summary.xtwx is None:  # a scan without cross-products: the rank check on X' W X here
         if warm is None:
-            raise RankDeficientError(
-                "the information matrix is singular at the start",
-                field="X",
-                value=list(names),
-                remedy="remove redundant terms",
-                details={"terms": list(names)},
-            )
+            raise _singular_start(names)
         check_rank(warm.info, names)
         return newton(obj, warm, np.ones(p, bool), max_iter=max_iter, tol=tol)
     coef0 = np.zeros(p)
@@ -232,16 +223,20 @@ def newton_from_scan(
     else:
         state0 = warm
     if state0 is None:
-        raise RankDeficientError(
-            "the information matrix is singular at the start",
-            field="X",
-            value=list(names),
-            remedy="remove redundant terms",
-            details={"terms": list(names)},
-        )
+        raise _singular_start(names)
     if warm is not None and warm.penalized_loglik > state0.penalized_loglik:
         state0 = warm
     return newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
+
+
+def _singular_start(names: tuple[str, ...]) -> RankDeficientError:
+    return RankDeficientError(
+        "the information matrix is singular at the start",
+        field="X",
+        value=list(names),
+        remedy="remove redundant terms",
+        details={"terms": list(names)},
+    )
 
 
 def finish_fit(

@@ -59,6 +59,21 @@ SAMPLE_MAX_ITER = 25
 SAMPLE_TOL = 1e-8
 
 
+def start_for(
+    method: str,
+    summary: DataSummary,
+    sample: BlockSource,
+    sampled_rows: int,
+    names: tuple[str, ...],
+    intercept_index: int | None,
+) -> SampleStart | None:
+    """The start every engine takes from its sample: maximum likelihood only, data of many rows
+    (:func:`worth_a_start`), and a sample that gives a good start (:func:`sample_start`)."""
+    if method != "mle" or not worth_a_start(summary, sampled_rows, len(names)):
+        return None
+    return sample_start(sample, names, intercept_index)
+
+
 def worth_a_start(summary: DataSummary, sampled_rows: int, p: int) -> bool:
     """Whether to fit a sample for a start: data of :data:`WARM_START_MIN_ROWS` rows or more
     and a sample of at least :data:`SAMPLE_ROWS_PER_TERM` rows per term."""

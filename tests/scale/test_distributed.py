@@ -95,13 +95,13 @@ def test_parquet_directory_equal_single_machine(
     import service.distributed as dist
 
     starts: list[np.ndarray | None] = []
-    real_start = dist.sample_start
+    real_start = dist.start_for
 
     def recorded(*args: Any) -> np.ndarray | None:
         starts.append(real_start(*args))
         return starts[-1]
 
-    monkeypatch.setattr(dist, "sample_start", recorded)
+    monkeypatch.setattr(dist, "start_for", recorded)
     kinds = {f["name"]: f["kind"] for f in SPEC_FEATURES}
     spec = TableSpec(str(files["directory"]), kinds, "outcome", "exposure", "log_length")
     enc = learn_streamed(SPEC_FEATURES, lambda: chunks(spec, 16_384)).encoding
