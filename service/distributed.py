@@ -37,7 +37,7 @@ from scipy.special import logit
 from service.errors import SpecError
 from service.stats.blocks import Block, BlockSource, sub_blocks
 from service.stats.firth import half_logdet, hat_score_adjustment
-from service.stats.fit import LogisticFit, Method, finish_fit, newton_from_scan
+from service.stats.fit import LogisticFit, Method, fit_from_scan
 from service.stats.fit_options import fit_options
 from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import Objective, State, newton
@@ -298,7 +298,7 @@ def fit_logistic_dask(
     summary, sample = engine.scan_and_sample(n_terms, names)
     sampled = sum(b.X.shape[0] for b in sample)  # fitted at the client
     start = start_for(method, summary, lambda: iter(sample), sampled, names, intercept_index)
-    res = newton_from_scan(
+    return fit_from_scan(
         lambda mask: DaskObjective(engine, None, method, ridge_lambda, mask),
         summary,
         names,
@@ -308,14 +308,6 @@ def fit_logistic_dask(
         max_iter=max_iter,
         tol=tol,
         start=start,
-    )
-    return finish_fit(
-        summary,
-        res,
-        names,
-        method,
-        ridge_lambda,
-        intercept_index,
         separation_blocks=engine.gathered,
         null_logliks=lambda: _null(engine, summary, intercept_index, method),
     )

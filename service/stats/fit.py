@@ -4,9 +4,9 @@
 (see :mod:`service.stats.blocks`), so the same mathematics fits data held in
 memory, streamed from files or spread over a cluster.
 
-Steps: one scan pass (checks, counts, X'WX for the rank test and, without an
-offset, the full first Newton pass for free), Newton-Raphson from the
-intercept-only solution ``logit(ybar)`` (:mod:`service.stats.newton`), then the
+Steps: one scan pass (checks, counts, X'WX for the rank test, a row sample), Newton-Raphson
+(:mod:`service.stats.newton`) from the fit on the sample for many rows
+(:mod:`service.stats.warm_start`), else from the intercept-only ``logit(ybar)``, then the
 existence checks (:mod:`service.stats.diagnostics`) and the statistics.
 
 Definitions: deviance ``-2 loglik`` (0/1 outcomes, so the saturated
@@ -34,18 +34,14 @@ from .fit_options import fit_options
 from .likelihood import DataSummary, Totals, loglik_pass, scan
 from .newton import NewtonResult, Objective, State, newton
 from .row_sample import RowSample
-from .warm_start import (
-    WARM_START_MIN_ROWS,
-    SampleStart,
-    first_state,
-    start_for,
-)
+from .warm_start import WARM_START_MIN_ROWS, SampleStart, first_state, start_for
 
 __all__ = [
     "LogisticFit",
     "Method",
     "constrained_fit",
     "finish_fit",
+    "fit_from_scan",
     "fit_logistic",
     "fit_logistic_blocks",
     "newton_from_scan",
@@ -154,8 +150,39 @@ def fit_logistic_blocks(
         start = start_for(method, summary, sample.source(), sample.rows, names, intercept_index)
     if summary.xtwx is None and start is None:
         summary = scan(blocks, n_terms, names)  # the intercept-only start needs X' W X
-    res = newton_from_scan(
+    return fit_from_scan(
         lambda mask: Objective(blocks, method, ridge_lambda, mask),
+        summary,
+        names,
+        method=method,
+        ridge_lambda=ridge_lambda,
+        intercept_index=intercept_index,
+        max_iter=max_iter,
+        tol=tol,
+        start=start,
+        separation_blocks=lambda: blocks,
+        null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
+    )
+
+
+def fit_from_scan(
+    make_objective: Callable[[np.ndarray], Objective],
+    summary: DataSummary,
+    names: tuple[str, ...],
+    *,
+    method: str,
+    ridge_lambda: float,
+    intercept_index: int | None,
+    max_iter: int,
+    tol: float,
+    start: SampleStart | None,
+    separation_blocks: Callable[[], BlockSource],
+    null_logliks: Callable[[], tuple[float, float]],
+) -> LogisticFit:
+    """Everything after the scan, for every engine: :func:`newton_from_scan`, then
+    :func:`finish_fit` (see both for the arguments)."""
+    res = newton_from_scan(
+        make_objective,
         summary,
         names,
         method=method,
@@ -172,8 +199,8 @@ def fit_logistic_blocks(
         method,
         ridge_lambda,
         intercept_index,
-        separation_blocks=lambda: blocks,
-        null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
+        separation_blocks=separation_blocks,
+        null_logliks=null_logliks,
     )
 
 
