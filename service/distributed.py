@@ -43,7 +43,7 @@ from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import Objective, State, newton
 from service.stats.row_sample import MAX_ROWS as MAX_SAMPLE_ROWS
 from service.stats.row_sample import RowSample
-from service.stats.warm_start import start_for
+from service.stats.warm_start import CHORD_MAX_STEPS, start_for
 
 __all__ = ["DaskEngine", "FilePartition", "connect", "file_partitions", "fit_logistic_dask"]
 
@@ -138,8 +138,10 @@ def _scan(
     return summary, list(sample.source()())
 
 
-def _totals(part: Any, keep: Sequence[int] | None, coef: np.ndarray, want: bool) -> Totals:
-    return loglik_pass(_source(part, keep), coef, want_info=want)
+def _totals(
+    part: Any, keep: Sequence[int] | None, coef: np.ndarray, want: bool, rounded: bool
+) -> Totals:
+    return loglik_pass(_source(part, keep), coef, want_info=want, rounded=rounded)
 
 
 def _hat(part: Any, keep: Sequence[int] | None, coef: np.ndarray, chol: np.ndarray) -> np.ndarray:
@@ -162,6 +164,7 @@ class DaskEngine:
                 remedy="point at a file or a non-empty directory",
             )
         self.client = client
+        self.persist = persist
         self.parts: list[Any] = (
             [client.submit(_load, part, pure=False) for part in partitions]
             if persist
@@ -198,13 +201,21 @@ class DaskEngine:
             sum((s.sum_wx2 for s in parts), np.zeros_like(parts[0].sum_wx2)),
         )
 
-    def totals(self, keep: Sequence[int] | None, coef: np.ndarray, want: bool = True) -> Totals:
-        parts: list[Totals] = self._map(_totals, keep, coef, want)
+    def totals(
+        self,
+        keep: Sequence[int] | None,
+        coef: np.ndarray,
+        want: bool = True,
+        *,
+        rounded: bool = False,
+    ) -> Totals:
+        parts: list[Totals] = self._map(_totals, keep, coef, want, rounded)
         return Totals(
             float(sum(t.loglik for t in parts)),
             sum((t.score for t in parts), np.zeros_like(coef)),
             sum((t.info for t in parts), np.zeros_like(parts[0].info)),
             sum(t.n_extreme for t in parts),
+            rounded and want,
         )
 
     def hat(self, keep: Sequence[int] | None, coef: np.ndarray, chol: np.ndarray) -> np.ndarray:
@@ -233,8 +244,9 @@ class DaskObjective(Objective):
         super().__init__(_no_local_rows, method, lam, np.asarray(mask))
         self.engine, self.keep = engine, keep
 
-    def evaluate(self, coef: np.ndarray) -> State | None:
-        return self.from_totals(coef, self.engine.totals(self.keep, coef))
+    def evaluate(self, coef: np.ndarray, *, rounded: bool = False) -> State | None:
+        rounded = rounded and self.method != "firth"
+        return self.from_totals(coef, self.engine.totals(self.keep, coef, rounded=rounded))
 
     def evaluate_without_information(self, coef: np.ndarray) -> State | None:
         return self.from_totals(coef, self.engine.totals(self.keep, coef, want=False))
@@ -310,4 +322,5 @@ def fit_logistic_dask(
         start=start,
         separation_blocks=engine.gathered,
         null_logliks=lambda: _null(engine, summary, intercept_index, method),
+        chord_steps=CHORD_MAX_STEPS if engine.persist else 1,  # in the workers' memory?
     )

@@ -32,9 +32,15 @@ from .blocks import BlockSource, array_blocks, sub_blocks
 from .diagnostics import check_counts, check_rank, check_separation
 from .fit_options import fit_options
 from .likelihood import DataSummary, Totals, loglik_pass, scan
-from .newton import NewtonResult, Objective, State, newton
+from .newton import NewtonResult, Objective, State, newton, rounding_safe
 from .row_sample import RowSample
-from .warm_start import WARM_START_MIN_ROWS, SampleStart, first_state, start_for
+from .warm_start import (
+    CHORD_MAX_STEPS,
+    WARM_START_MIN_ROWS,
+    SampleStart,
+    first_state,
+    start_for,
+)
 
 __all__ = [
     "LogisticFit",
@@ -133,9 +139,11 @@ def fit_logistic_blocks(
     Maximum-likelihood fits of many rows start from the fit on a systematic sample of them,
     taken during the scan (:mod:`service.stats.warm_start`), when that is the better start.
     ``many_rows`` (the caller knows there are at least
-    :data:`~service.stats.warm_start.WARM_START_MIN_ROWS`): the scan then skips the
-    cross-products, which the sample start does without (its rank check runs on the first full
-    pass); should the sample give no start, a second scan computes them.
+    :data:`~service.stats.warm_start.WARM_START_MIN_ROWS`, in memory): the scan then skips
+    the cross-products, which the sample start does without (its rank check runs on the final
+    information); should the sample give no start, a second scan computes them. Newton then
+    starts after up to :data:`~service.stats.warm_start.CHORD_MAX_STEPS` chord steps from the
+    sample's maximum, passes without the information being cheap in memory.
 
     Raises SingleClassError, TooFewObservationsError, RankDeficientError,
     SeparationError (``details["terms"]``; mle only), DataError, SpecError.
@@ -162,6 +170,7 @@ def fit_logistic_blocks(
         start=start,
         separation_blocks=lambda: blocks,
         null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
+        chord_steps=CHORD_MAX_STEPS if many_rows else 1,
     )
 
 
@@ -178,6 +187,7 @@ def fit_from_scan(
     start: SampleStart | None,
     separation_blocks: Callable[[], BlockSource],
     null_logliks: Callable[[], tuple[float, float]],
+    chord_steps: int = 1,
 ) -> LogisticFit:
     """Everything after the scan, for every engine: :func:`newton_from_scan`, then
     :func:`finish_fit` (see both for the arguments)."""
@@ -191,6 +201,7 @@ def fit_from_scan(
         max_iter=max_iter,
         tol=tol,
         start=start,
+        chord_steps=chord_steps,
     )
     return finish_fit(
         summary,
@@ -215,16 +226,21 @@ def newton_from_scan(
     max_iter: int,
     tol: float,
     start: SampleStart | None = None,
+    chord_steps: int = 1,
 ) -> NewtonResult:
     """Existence checks on the scan, then Newton from the intercept-only start (every engine).
 
     ``make_objective(penalty_mask)`` builds the engine's objective; the mask is 1 for every
     penalised coefficient (all but the intercept). Without an offset the start state comes from
-    the scan's sums, with no pass. A ``start`` (the maximum on a sample of the rows) costs a
-    pass without and one with the information (:func:`~service.stats.warm_start.first_state`)
-    and replaces the intercept-only start when its penalised log-likelihood is higher (with an
-    offset, whenever it can be evaluated: the intercept-only start would cost a pass of its
-    own, and Newton's step-halving climbs from any start).
+    the scan's sums, with no pass. A ``start`` (the maximum on a sample of the rows) costs
+    up to ``chord_steps`` passes without and one with the information
+    (:func:`~service.stats.warm_start.first_state`: more than one for data in memory, where a
+    pass without the information costs a fraction of a full one) and replaces the
+    intercept-only start when its penalised log-likelihood is higher (with an offset, whenever
+    it can be evaluated: the intercept-only start would cost a pass of its own, and Newton's
+    step-halving climbs from any start). Newton takes rounded steps when the problem allows
+    (:func:`~service.stats.newton.rounding_safe` on the sample's information, else on the
+    scan's ``X' W X``).
     """
     p = len(names)
     check_counts(summary, p)
@@ -234,12 +250,21 @@ def newton_from_scan(
     if intercept_index is not None:
         mask[intercept_index] = 0.0
     obj = make_objective(mask)
-    warm = None if start is None else first_state(obj, start, summary.sum_weights)
+    rounded = _rounding_safe(summary, start)
+    warm = None
+    if start is not None:
+        warm = first_state(
+            obj, start, summary.sum_weights, rounded=rounded, max_chord_steps=chord_steps
+        )
     if summary.xtwx is None:  # a scan without cross-products: the rank check on X' W X here
         if warm is None:
             raise _singular_start(names)
-        check_rank(warm.info, names)
-        return newton(obj, warm, np.ones(p, bool), max_iter=max_iter, tol=tol)
+        if not warm.rounded:
+            check_rank(warm.info, names)
+        res = newton(obj, warm, np.ones(p, bool), max_iter=max_iter, tol=tol, rounded=rounded)
+        if warm.rounded:  # on the final information, the first exact one
+            check_rank(res.state.info, names)
+        return res
     coef0 = np.zeros(p)
     if intercept_index is not None:
         coef0[intercept_index] = logit(summary.n_events / summary.sum_weights)
@@ -253,7 +278,15 @@ def newton_from_scan(
         raise _singular_start(names)
     if warm is not None and warm.penalized_loglik > state0.penalized_loglik:
         state0 = warm
-    return newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol)
+    return newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol, rounded=rounded)
+
+
+def _rounding_safe(summary: DataSummary, start: SampleStart | None) -> bool:
+    """Whether Newton may take rounded steps (:func:`~service.stats.newton.rounding_safe`),
+    judged on the sample's information or else on the scan's ``X' W X``."""
+    if start is not None:
+        return rounding_safe(start.info, start.sample_weight)
+    return summary.xtwx is not None and rounding_safe(summary.xtwx, summary.sum_weights)
 
 
 def _singular_start(names: tuple[str, ...]) -> RankDeficientError:

@@ -75,6 +75,7 @@ class Totals:
     score: np.ndarray
     info: np.ndarray
     n_extreme: int  # rows with |eta| > EXTREME_ETA (fitted probability numerically 0 or 1)
+    rounded: bool = False  # info summed in single precision (loglik and score never are)
 
 
 @dataclass(frozen=True)
@@ -304,14 +305,15 @@ def _diag_of(lane: _ScanSums) -> np.ndarray:
 class _PassSums:
     """One lane's share of a fused pass, with its own scratch buffer for ``sqrt(W) X``."""
 
-    def __init__(self, p: int, want_info: bool) -> None:
+    def __init__(self, p: int, want_info: bool, rounded: bool = False) -> None:
         self.loglik = 0.0
         self.score = np.zeros(p)
         self.info = np.zeros((p, p))
         self.n_extreme = 0
         self.want_info = want_info
         self.size = chunk_rows(p)
-        self.buf = np.empty((self.size, p)) if want_info else np.empty((0, p))
+        dtype = np.float32 if rounded else np.float64
+        self.buf = np.empty((self.size, p), dtype) if want_info else np.empty((0, p))
 
     def add(self, block: Block, coef: np.ndarray) -> None:
         for b in chunks(block, self.size):
@@ -349,13 +351,20 @@ class _PassSums:
             if w is not None:
                 sw *= np.sqrt(w)
             m = X.shape[0]
-            out = None if m > self.size else self.buf[:m]
-            Xs = np.multiply(X, sw[:, None], out=out)
-            self.info += np.dot(Xs.T, Xs)  # dsyrk, GIL released (module docstring)
+            out = None if m > self.size else self.buf[:m]  # float32 when rounded
+            Xs = np.multiply(X, sw[:, None], out=out, casting="same_kind")
+            self.info += np.dot(Xs.T, Xs)  # dsyrk (ssyrk when rounded), GIL released
 
 
-def loglik_pass(blocks: BlockSource, coef: np.ndarray, *, want_info: bool = True) -> Totals:
+def loglik_pass(
+    blocks: BlockSource, coef: np.ndarray, *, want_info: bool = True, rounded: bool = False
+) -> Totals:
     """One fused pass: log-likelihood, score and information at ``coef``.
+
+    ``rounded``: each chunk's ``A' A`` is summed in single precision (``ssyrk``, half the time
+    of ``dsyrk``; relative error about ``1e-7``, the chunk sums are added in double), an
+    information good enough for a Newton step far from the maximum but not for the covariance
+    or a rank test (:func:`service.stats.newton.newton` decides when it may be used).
 
     With ``e = exp(-|eta|)``: ``log(1 + exp(eta)) = max(eta, 0) + log1p(e)`` and
     ``mu (1 - mu) = e / (1 + e)^2``; ``mu = 1 / (1 + exp(-eta))``. All accurate in both tails
@@ -364,12 +373,16 @@ def loglik_pass(blocks: BlockSource, coef: np.ndarray, *, want_info: bool = True
     (:mod:`service.stats.lanes`) share the rows of each block.
     """
     p = coef.shape[0]
-    lanes = [_PassSums(p, want_info) for _ in range(LANES)]
+    lanes = [_PassSums(p, want_info, rounded) for _ in range(LANES)]
     for block in blocks():
         parts = lane_slices(block.X.shape[0], chunk_rows(p))
         tasks = [partial(lanes[k].add, rows(block, sl), coef) for k, sl in enumerate(parts)]
         run_lanes(tasks, n_terms=p)
     a, b = lanes
     return Totals(
-        a.loglik + b.loglik, a.score + b.score, a.info + b.info, a.n_extreme + b.n_extreme
+        a.loglik + b.loglik,
+        a.score + b.score,
+        a.info + b.info,
+        a.n_extreme + b.n_extreme,
+        rounded and want_info,
     )

@@ -8,9 +8,10 @@ import statsmodels.api as sm
 from service.stats.blocks import Block, array_blocks
 from service.stats.fit import fit_logistic, newton_from_scan
 from service.stats.likelihood import scan
-from service.stats.newton import Objective
+from service.stats.newton import Objective, newton
 from service.stats.row_sample import RowSample
 from service.stats.warm_start import (
+    CHORD_MAX_STEPS,
     SAMPLE_ROWS_PER_TERM,
     WARM_START_MIN_ROWS,
     first_state,
@@ -137,23 +138,80 @@ def test_rare_column_separated_in_the_sample_gives_no_start() -> None:
     np.testing.assert_allclose(fit.std_error, ref.bse, rtol=1e-8)
 
 
-def test_the_chord_step_from_the_sample_lands_closer_to_the_maximum() -> None:
-    # first_state: one step with the sample's information scaled to the full weight. Here it
-    # must cut the distance to the full maximum (statsmodels Logit Newton) at least tenfold.
-    X, y = _data(51)
+class _Passes(Objective):
+    """Counts passes with and without the information."""
+
+    def __init__(self, *args, **kwargs) -> None:  # type: ignore[no-untyped-def]
+        super().__init__(*args, **kwargs)
+        self.full = 0
+        self.score_only = 0
+
+    def evaluate(self, coef, *, rounded=False):  # type: ignore[no-untyped-def]
+        self.full += 1
+        return super().evaluate(coef, rounded=rounded)
+
+    def evaluate_without_information(self, coef):  # type: ignore[no-untyped-def]
+        self.score_only += 1
+        return super().evaluate_without_information(coef)
+
+
+def _chord_setup(seed: int):  # type: ignore[no-untyped-def]
+    X, y = _data(seed)
     X = X[:, :5]
     blocks = array_blocks(X, y)
     sample = RowSample()
     summary = scan(blocks, X.shape[1], NAMES[:5], sample)
     start = sample_start(sample.source(), NAMES[:5], 0)
     assert start is not None
+    best = sm.Logit(y, X).fit(method="newton", tol=1e-12, disp=False).params  # statsmodels
+    return blocks, summary, start, best
+
+
+def test_the_chord_step_from_the_sample_lands_closer_to_the_maximum() -> None:
+    # first_state: one step with the sample's information scaled to the full weight. Here it
+    # must cut the distance to the full maximum (statsmodels Logit Newton) at least tenfold.
+    blocks, summary, start, best = _chord_setup(51)
     obj = Objective(blocks, "mle", 0.0, np.r_[0.0, np.ones(4)])
     state = first_state(obj, start, summary.sum_weights)
     assert state is not None
-    best = sm.Logit(y, X).fit(method="newton", tol=1e-12, disp=False).params
     before = np.max(np.abs(start.coef - best))
     after = np.max(np.abs(state.coef - best))
     assert after < before / 10, (before, after)
+
+
+def test_more_chord_steps_land_closer_for_passes_without_the_information() -> None:
+    # Several chord steps (each a pass without the information) against one: closer to the
+    # statsmodels Logit maximum, and still only one pass with the information.
+    blocks, summary, start, best = _chord_setup(53)
+    mask = np.r_[0.0, np.ones(4)]
+    one = _Passes(blocks, "mle", 0.0, mask)
+    many = _Passes(blocks, "mle", 0.0, mask)
+    s1 = first_state(one, start, summary.sum_weights)
+    s6 = first_state(many, start, summary.sum_weights, max_chord_steps=CHORD_MAX_STEPS)
+    assert s1 is not None and s6 is not None
+    assert (one.full, one.score_only) == (1, 1)
+    assert many.full == 1 and 2 <= many.score_only <= CHORD_MAX_STEPS
+    err1 = np.max(np.abs(s1.coef - best))
+    err6 = np.max(np.abs(s6.coef - best))
+    assert err6 < err1 / 10, (err1, err6)
+
+
+def test_chord_steps_that_do_not_climb_give_way_to_newton() -> None:
+    # A sample information far too small makes the chord step overshoot (the log-likelihood
+    # falls): first_state returns the full state at the sample's maximum instead, and Newton
+    # from there still ends at the statsmodels Logit maximum.
+    from dataclasses import replace
+
+    blocks, summary, start, best = _chord_setup(57)
+    bad = replace(start, info=start.info * 1e-3)
+    obj = _Passes(blocks, "mle", 0.0, np.r_[0.0, np.ones(4)])
+    state = first_state(obj, bad, summary.sum_weights, max_chord_steps=CHORD_MAX_STEPS)
+    assert state is not None
+    np.testing.assert_array_equal(state.coef, start.coef)
+    assert obj.full == 1
+    res = newton(obj, state, np.ones(5, bool), max_iter=50, tol=1e-10)
+    assert res.converged
+    np.testing.assert_allclose(res.state.coef, best, rtol=1e-8, atol=1e-10)
 
 
 def test_light_scan_keeps_the_diagonal_and_the_checks() -> None:
