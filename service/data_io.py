@@ -92,6 +92,8 @@ def coerce_column(name: str, kind: str, values: Any, where: FieldNamer) -> np.nd
         raw = np.asarray(seq) if not isinstance(seq, np.ndarray) else seq
         if raw.ndim != 1 or raw.dtype.kind not in "fiu":
             _raise_first_non_number(name, seq, where)  # None, text, bools, nested lists
+        if raw is not seq and bool in set(map(type, seq)):  # numpy casts [True, 12] to ints
+            _raise_first_non_number(name, seq, where)
         try:
             arr = np.asarray(raw, dtype=np.float64)
         except (TypeError, ValueError, OverflowError):

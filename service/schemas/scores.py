@@ -19,7 +19,7 @@ from service.schemas.common import StrictModel
 
 __all__ = ["ScoreBatchPublic", "ScoreCreate", "ScoreOptions", "ScorePublic"]
 
-Scalar = float | int | str | None
+Scalar = bool | float | int | str | None  # as CellValue in service.schemas.versions
 
 
 class ScoreOptions(StrictModel):

@@ -33,7 +33,10 @@ __all__ = [
 ]
 
 NAME_PATTERN = r"^[^\x00-\x1f:=]{1,100}$"
-CellValue = float | int | str | None
+# bool is listed so that JSON true/false reach the validation as themselves (pydantic would turn
+# them into 1.0 / 0.0): a categorical cell then reads "true" / "false", as the score route and
+# the file readers read it, and a numeric cell is refused by name.
+CellValue = bool | float | int | str | None
 
 
 class FeatureSpec(StrictModel):

@@ -114,6 +114,17 @@ CASES: list[tuple[str, str, str, Any, int, str, str | None, Any]] = [
         "old",
     ),
     (
+        # JSON true among numbers: numpy would cast [true, 12, ...] to integers; refused.
+        "fit-bool-in-numeric",
+        "POST",
+        FIT,
+        {"json": fit_body(_cols(a=_set("prior_breaks_5y", 4, True)))},
+        422,
+        "invalid_data",
+        "data.columns.prior_breaks_5y[4]",
+        True,
+    ),
+    (
         "fit-null-category",
         "POST",
         FIT,
@@ -258,6 +269,16 @@ CASES: list[tuple[str, str, str, Any, int, str, str | None, Any]] = [
         "invalid_data",
         "records[0].prior_breaks_5y",
         "two",
+    ),
+    (
+        "score-bool-among-numbers",
+        "POST",
+        SCORE,
+        {"json": {"records": [_rec(), _rec(prior_breaks_5y=False)]}},
+        422,
+        "invalid_data",
+        "records[1].prior_breaks_5y",
+        False,
     ),
     (
         "score-nested-value",

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import io
+import json
 from typing import Any
 
 import numpy as np
@@ -162,3 +163,30 @@ def test_uploads_and_rows_equal_the_json_columns_fit(api: ApiClient, fmt: str) -
     assert other["data_fingerprint"] == base["data_fingerprint"]
     assert other["term_table"] == base["term_table"]
     assert other["encoding"] == base["encoding"]
+
+
+def test_a_boolean_feature_reads_true_and_false_when_fitted_and_when_scored(
+    api: ApiClient,
+) -> None:
+    # JSON true/false in a categorical column: levels "true" / "false" in the fit (JSON
+    # columns and Parquet alike) and the same levels when a record is scored with true.
+    cols = segments(800, seed=21)
+    cols["lined"] = [i % 3 == 0 for i in range(800)]
+    spec = {**SPEC, "features": [*SPEC["features"], {"name": "lined", "kind": "categorical"}]}
+    fit = api.post(URL, json={**spec, "data": {"columns": cols}})
+    assert fit.status_code == 201, fit.text
+    lined = next(f for f in fit.json()["encoding"]["features"] if f["name"] == "lined")
+    assert sorted(lined["levels"]) == ["false", "true"]
+    buf = io.BytesIO()
+    pq.write_table(pa.table(cols), buf)
+    up = api.post(
+        "/risk-models/water-mains-file/versions",
+        data={"spec": json.dumps(spec)},
+        files={"data": ("d.parquet", buf.getvalue(), "application/octet-stream")},
+    )
+    assert up.status_code == 201, up.text
+    assert up.json()["encoding"] == fit.json()["encoding"]
+    scored = api.post(
+        "/risk-models/water-mains/scores", json={"records": [{**NEW_RECORDS[0], "lined": True}]}
+    )
+    assert scored.status_code == 200, scored.text

@@ -167,6 +167,7 @@ def test_one_record_requests_match_statsmodels(api: ApiClient) -> None:
     "bad",
     [
         {"age_years": "old"},
+        {"age_years": True},
         {"diameter_mm": -5},
         {"material": "copper"},
         {"soil": None},
@@ -175,7 +176,6 @@ def test_one_record_requests_match_statsmodels(api: ApiClient) -> None:
     ],
 )
 def test_a_refused_record_gets_the_general_paths_error(api: ApiClient, bad: dict[str, Any]) -> None:
-    # (not a bool: the general path refuses [True] but takes [True, 12] as numbers)
     assert api.post("/risk-models/water-mains/versions", json=fit_body()).status_code == 201
     rec = {**NEW_RECORDS[0], **bad}
     one = api.post(SCORE, json={"records": [rec]})
