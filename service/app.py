@@ -1,7 +1,8 @@
 """The app factory: ``create_app(settings) -> FastAPI``.
 
 Start-up (lifespan) applies the store's Alembic migrations, builds the SQLAlchemy engine and
-session factory into ``app.state`` and disposes of the engine at shutdown. Nothing is built at
+session factory into ``app.state``, tunes the garbage collector for a server
+(:mod:`service.heap`) and undoes it and disposes of the engine at shutdown. Nothing is built at
 import time, so tests create one app per test with their own :class:`Settings`.
 
 Adding a resource: write ``service/api/<resource>.py`` with ``router = APIRouter(...)`` and
@@ -22,6 +23,7 @@ from service.api.errors import install_error_handlers
 from service.api.metrics import AppMetrics, MetricsMiddleware
 from service.compute import apply_compute_settings
 from service.config import Settings, get_settings
+from service.heap import server_heap
 from service.limits import LimitsMiddleware
 from service.schemas import ErrorResponse
 from service.scoring import VersionCache
@@ -74,7 +76,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         app.state.engine = engine
         app.state.session_factory = make_session_factory(engine)
         try:
-            yield
+            with server_heap():  # the collector tuned for a server (service.heap)
+                yield
         finally:
             engine.dispose()
 
