@@ -6,7 +6,9 @@
 
 The reference distributions, training ranges and fingerprint depend on the data only, so they
 are computed in a helper thread while the fit and its inference run (numpy's sorts, partitions
-and hashlib release the GIL); their errors are raised after the fit's own.
+and hashlib release the GIL); their errors are raised after the fit's own. The fit's own
+statistics (apparent AUC and Brier score: a sort of the fitted probabilities) are computed in
+another while the drop-term LR tests run.
 
 Nothing is written unless every step succeeds; the first version of a model becomes its
 champion with the reason ``"first version"``. The steps live in their own modules:
@@ -41,7 +43,7 @@ from service.schemas import VersionSpec
 from service.stats.blocks import array_blocks
 from service.stats.columns import CodedLabels
 from service.stats.design import design_matrix, learn_encoding
-from service.stats.fit import fit_logistic
+from service.stats.fit import LogisticFit, fit_logistic
 from service.stats.inference import drop_term_tests, profile_intervals, term_table
 from service.step_times import StepTimes
 from service.version_store import FIRST_VERSION_REASON, store_version
@@ -72,6 +74,13 @@ def _data_summaries(
     refs, ranges = reference_distributions_and_ranges(spec, data.columns, data.coded)
     options = spec.options
     return refs, ranges, data_fingerprint(data, spec.outcome, options.weights, options.offset)
+
+
+def _fit_statistics(X: np.ndarray, fit: LogisticFit, data: TrainingData) -> dict[str, Any]:
+    """The fit's statistics on its own data (fitted probabilities, apparent AUC and Brier)."""
+    eta = X @ fit.coef + (data.offset if data.offset is not None else 0.0)
+    p = 1.0 / (1.0 + np.exp(-eta))
+    return fit_statistics_dict(fit, data.y, p, data.weights)
 
 
 def fit_version(
@@ -123,11 +132,10 @@ def fit_version(
     else:
         table = term_table(fit, confidence_level)
     groups = {k: v for k, v in encoding.term_groups.items() if k != "intercept"}
+    fit_summary = _DATA_SUMMARIES.submit(_fit_statistics, X, fit, data)  # while the LR tests run
     drops = drop_term_tests(blocks, fit, groups)
     times.lap("inference")
-    eta = X @ fit.coef + (data.offset if data.offset is not None else 0.0)
-    p = 1.0 / (1.0 + np.exp(-eta))
-    fit_stats = fit_statistics_dict(fit, data.y, p, data.weights)
+    fit_stats = fit_summary.result()
     fit_stats["drop_term_tests"] = drop_term_dicts(drops)
     fit_stats["fit_seconds"] = time.perf_counter() - started
     refs, ranges, fingerprint = data_summaries.result()
