@@ -43,7 +43,7 @@ from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import Objective, State, newton
 from service.stats.row_sample import MAX_ROWS as MAX_SAMPLE_ROWS
 from service.stats.row_sample import RowSample
-from service.stats.warm_start import CHORD_MAX_STEPS, start_for
+from service.stats.warm_start import start_for
 
 __all__ = ["DaskEngine", "FilePartition", "connect", "file_partitions", "fit_logistic_dask"]
 
@@ -322,5 +322,5 @@ def fit_logistic_dask(
         start=start,
         separation_blocks=engine.gathered,
         null_logliks=lambda: _null(engine, summary, intercept_index, method),
-        chord_steps=CHORD_MAX_STEPS if engine.persist else 1,  # in the workers' memory?
+        in_memory=engine.persist,  # the partitions held in the workers' memory
     )

@@ -133,6 +133,7 @@ def fit_logistic_blocks(
     max_iter: int = 100,
     tol: float = 1e-10,
     many_rows: bool = False,
+    in_memory: bool = False,
 ) -> LogisticFit:
     """Fit by Newton-Raphson over a block source (see module docstring for definitions).
 
@@ -141,9 +142,12 @@ def fit_logistic_blocks(
     ``many_rows`` (the caller knows there are at least
     :data:`~service.stats.warm_start.WARM_START_MIN_ROWS`, in memory): the scan then skips
     the cross-products, which the sample start does without (its rank check runs on the final
-    information); should the sample give no start, a second scan computes them. Newton then
-    starts after up to :data:`~service.stats.warm_start.CHORD_MAX_STEPS` chord steps from the
-    sample's maximum, passes without the information being cheap in memory.
+    information); should the sample give no start, a second scan computes them.
+    ``in_memory`` (the blocks are in memory, so a pass costs computing, not reading): Newton
+    may take rounded steps, and starts after up to
+    :data:`~service.stats.warm_start.CHORD_MAX_STEPS` chord steps from the sample's maximum
+    (see :func:`newton_from_scan`); data read from files get neither, since there every pass
+    costs a read of the file whatever it computes.
 
     Raises SingleClassError, TooFewObservationsError, RankDeficientError,
     SeparationError (``details["terms"]``; mle only), DataError, SpecError.
@@ -170,7 +174,7 @@ def fit_logistic_blocks(
         start=start,
         separation_blocks=lambda: blocks,
         null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
-        chord_steps=CHORD_MAX_STEPS if many_rows else 1,
+        in_memory=in_memory,
     )
 
 
@@ -187,7 +191,7 @@ def fit_from_scan(
     start: SampleStart | None,
     separation_blocks: Callable[[], BlockSource],
     null_logliks: Callable[[], tuple[float, float]],
-    chord_steps: int = 1,
+    in_memory: bool = False,
 ) -> LogisticFit:
     """Everything after the scan, for every engine: :func:`newton_from_scan`, then
     :func:`finish_fit` (see both for the arguments)."""
@@ -201,7 +205,7 @@ def fit_from_scan(
         max_iter=max_iter,
         tol=tol,
         start=start,
-        chord_steps=chord_steps,
+        in_memory=in_memory,
     )
     return finish_fit(
         summary,
@@ -226,21 +230,22 @@ def newton_from_scan(
     max_iter: int,
     tol: float,
     start: SampleStart | None = None,
-    chord_steps: int = 1,
+    in_memory: bool = False,
 ) -> NewtonResult:
     """Existence checks on the scan, then Newton from the intercept-only start (every engine).
 
     ``make_objective(penalty_mask)`` builds the engine's objective; the mask is 1 for every
     penalised coefficient (all but the intercept). Without an offset the start state comes from
     the scan's sums, with no pass. A ``start`` (the maximum on a sample of the rows) costs
-    up to ``chord_steps`` passes without and one with the information
-    (:func:`~service.stats.warm_start.first_state`: more than one for data in memory, where a
-    pass without the information costs a fraction of a full one) and replaces the
-    intercept-only start when its penalised log-likelihood is higher (with an offset, whenever
-    it can be evaluated: the intercept-only start would cost a pass of its own, and Newton's
-    step-halving climbs from any start). Newton takes rounded steps when the problem allows
+    passes without the information and one with it
+    (:func:`~service.stats.warm_start.first_state`: one chord step, or up to
+    :data:`~service.stats.warm_start.CHORD_MAX_STEPS` ``in_memory``, where a pass without the
+    information costs a fraction of a full one) and replaces the intercept-only start when
+    its penalised log-likelihood is higher (with an offset, whenever it can be evaluated: the
+    intercept-only start would cost a pass of its own, and Newton's step-halving climbs from
+    any start). ``in_memory``, Newton takes rounded steps when the problem allows
     (:func:`~service.stats.newton.rounding_safe` on the sample's information, else on the
-    scan's ``X' W X``).
+    scan's ``X' W X``); they save computing, not reading.
     """
     p = len(names)
     check_counts(summary, p)
@@ -250,12 +255,11 @@ def newton_from_scan(
     if intercept_index is not None:
         mask[intercept_index] = 0.0
     obj = make_objective(mask)
-    rounded = _rounding_safe(summary, start)
+    rounded = in_memory and _rounding_safe(summary, start)
     warm = None
     if start is not None:
-        warm = first_state(
-            obj, start, summary.sum_weights, rounded=rounded, max_chord_steps=chord_steps
-        )
+        steps = CHORD_MAX_STEPS if in_memory else 1
+        warm = first_state(obj, start, summary.sum_weights, rounded=rounded, max_chord_steps=steps)
     if summary.xtwx is None:  # a scan without cross-products: the rank check on X' W X here
         if warm is None:
             raise _singular_start(names)
@@ -394,6 +398,7 @@ def fit_logistic(
         max_iter=max_iter,
         tol=tol,
         many_rows=many,
+        in_memory=True,
     )
 
 

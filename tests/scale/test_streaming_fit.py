@@ -1,4 +1,4 @@
-"""Streaming fits over Parquet and CSV equal the in-memory fit to 1e-10.
+"""Streaming fits over Parquet and CSV equal the in-memory fit to the convergence tolerance.
 
 The in-memory engine is itself checked against statsmodels' GLM in tests/stats; here the
 streamed fit must equal it (coef, cov, loglik), and on a mid-size streamed file it is also
@@ -78,7 +78,10 @@ def test_streamed_fit_equals_in_memory(
         blocks, n_terms=len(enc.term_names), term_names=enc.term_names, method=method
     )
     assert got.converged
-    assert_same_fit(expected, got)
+    # The in-memory fit takes rounded and several chord steps (cheap there), the streamed one
+    # neither (each pass is a read of the file), so they reach the maximum along different
+    # paths; both stop at the same convergence test (largest step <= 1e-8 of |coef| + SE).
+    assert_same_fit(expected, got, tol=1e-8)
 
 
 def test_streamed_fit_matches_statsmodels(files: dict[str, Path]) -> None:
