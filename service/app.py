@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import importlib
 from collections.abc import AsyncIterator
-from contextlib import asynccontextmanager
+from contextlib import asynccontextmanager, nullcontext
 
 from fastapi import APIRouter, Depends, FastAPI
 
@@ -76,7 +76,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         app.state.engine = engine
         app.state.session_factory = make_session_factory(engine)
         try:
-            with server_heap():  # the collector tuned for a server (service.heap)
+            with server_heap() if settings.tune_gc else nullcontext():  # service.heap
                 yield
         finally:
             engine.dispose()

@@ -14,7 +14,9 @@ single-record scoring was that pause), and the young collections of the default 
 
 Measured with ``riskfit serve`` and 16 clients scoring single records (wrk, 6 s): time in
 the collector 0.77 s -> 0.08 s, p99 latency 126 ms -> 17 ms. Both are undone when the app
-shuts down, so a process that starts many apps in turn (the tests) can still collect them.
+shuts down, so a process that starts many apps in turn can still collect them; the setting
+``tune_gc`` (``RISKFIT_TUNE_GC``) turns it off, as the tests do (the first full collection
+costs about 0.2 s in a process that holds every test dependency).
 Python's ``gc`` documentation describes ``freeze`` for this use (long-lived start-up state).
 """
 

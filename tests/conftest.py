@@ -7,6 +7,11 @@ import shutil
 
 import pytest
 
+# The apps the tests start leave the garbage collector alone: its tuning for a server starts
+# with a full collection, about 0.2 s in a process holding every test dependency, for each of
+# hundreds of apps (tests/api/test_server_heap.py turns it on for itself).
+os.environ.setdefault("RISKFIT_TUNE_GC", "false")
+
 
 def pytest_report_header(config: pytest.Config) -> list[str]:
     pg = os.environ.get("RISKFIT_TEST_POSTGRES_URL")

@@ -14,7 +14,7 @@ from tests.store.dbfixtures import sqlite_url
 
 def test_lifespan_freezes_the_start_up_heap_and_restores_the_collector(tmp_path: Path) -> None:
     before = gc.get_threshold()
-    app = create_app(Settings(database_url=sqlite_url(tmp_path), auth_required=False))
+    app = create_app(Settings(database_url=sqlite_url(tmp_path), auth_required=False, tune_gc=True))
     client = ApiClient(app)  # runs the lifespan's start-up
     try:
         assert client.get("/healthz").status_code == 200
@@ -25,6 +25,18 @@ def test_lifespan_freezes_the_start_up_heap_and_restores_the_collector(tmp_path:
         client.close()  # and its shutdown
     assert gc.get_threshold() == before
     assert gc.get_freeze_count() == 0  # collectable again: a test process starts many apps
+
+
+def test_without_tune_gc_the_collector_is_left_alone(tmp_path: Path) -> None:
+    before = gc.get_threshold()
+    app = create_app(
+        Settings(database_url=sqlite_url(tmp_path), auth_required=False, tune_gc=False)
+    )
+    client = ApiClient(app)
+    try:
+        assert gc.get_freeze_count() == 0 and gc.get_threshold() == before
+    finally:
+        client.close()
 
 
 def test_server_heap_restores_the_collector_when_the_block_fails() -> None:
