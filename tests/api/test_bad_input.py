@@ -228,6 +228,26 @@ CASES: list[tuple[str, str, str, Any, int, str, str | None, Any]] = [
         "bad name!",
     ),
     (
+        "score-bad-model-name",
+        "POST",
+        "/risk-models/bad%20name!/scores",
+        {"json": {"records": [_rec()]}},
+        422,
+        "invalid_request",
+        "model",
+        "bad name!",
+    ),
+    (
+        "score-model-name-too-long",
+        "POST",
+        "/risk-models/" + "m" * 101 + "/scores",
+        {"json": {"records": [_rec()]}},
+        422,
+        "invalid_request",
+        "model",
+        "m" * 101,
+    ),
+    (
         "score-unseen-level",
         "POST",
         SCORE,
@@ -404,3 +424,14 @@ def test_separation_error_suggests_firth(api: ApiClient) -> None:
         ).status_code
         == 201
     )
+
+
+def test_the_score_route_documents_its_model_parameter_like_every_other_route(
+    api: ApiClient,
+) -> None:
+    # Its body is documented by hand (openapi_extra); the {model} parameter must still be
+    # the one every route that declares ModelName documents.
+    paths = api.get("/openapi.json").json()["paths"]
+    declared = paths["/risk-models/{model}"]["get"]["parameters"]
+    scores = paths["/risk-models/{model}/scores"]["post"]["parameters"]
+    assert scores == [p for p in declared if p["name"] == "model"]

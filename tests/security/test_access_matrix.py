@@ -129,6 +129,21 @@ def test_unknown_model_without_a_key_is_401_not_404(secured: ApiClient) -> None:
         assert secured.get(url).status_code == 401
 
 
+def test_the_score_route_checks_the_key_before_the_model_name_and_the_model(
+    secured: ApiClient, plain_keys: dict[str, str]
+) -> None:
+    # The hot path (model and champion from memory, no session): still 401 before a 422
+    # for a bad name or a 404 for an unknown model; a scorer key reaches those checks.
+    body = {"json": {"records": [{"x": 1}]}}
+    for name in ("bad%20name!", "secret-model"):
+        assert secured.post(f"/risk-models/{name}/scores", **body).status_code == 401
+    scorer = {"X-API-Key": plain_keys["scorer"]}
+    r = secured.post("/risk-models/bad%20name!/scores", headers=scorer, **body)
+    assert r.status_code == 422 and r.json()["error"]["field"] == "model"
+    r = secured.post("/risk-models/secret-model/scores", headers=scorer, **body)
+    assert r.status_code == 404
+
+
 def test_x_api_key_header_works_and_a_malformed_authorization_is_401(
     secured: ApiClient, plain_keys: dict[str, str]
 ) -> None:
