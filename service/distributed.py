@@ -306,19 +306,15 @@ def fit_logistic_dask(
     The scan also brings a systematic sample of each partition's rows to the client, whose fit
     there gives Newton its start (:mod:`service.stats.warm_start`), as in a local fit.
     """
-    names = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
+    opts = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
+    names = opts.names
     summary, sample = engine.scan_and_sample(n_terms, names)
     sampled = sum(b.X.shape[0] for b in sample)  # fitted at the client
     start = start_for(method, summary, lambda: iter(sample), sampled, names, intercept_index)
     return fit_from_scan(
         lambda mask: DaskObjective(engine, None, method, ridge_lambda, mask),
         summary,
-        names,
-        method=method,
-        ridge_lambda=ridge_lambda,
-        intercept_index=intercept_index,
-        max_iter=max_iter,
-        tol=tol,
+        opts,
         start=start,
         separation_blocks=engine.gathered,
         null_logliks=lambda: _null(engine, summary, intercept_index, method),

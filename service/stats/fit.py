@@ -5,7 +5,8 @@
 memory, streamed from files or spread over a cluster.
 
 Steps: one scan pass (checks, counts, X'WX for the rank test, a row sample), Newton-Raphson
-(:mod:`service.stats.newton`) from the fit on the sample for many rows
+(:mod:`service.stats.newton`, started by :mod:`service.stats.fit_start`) from the fit on the
+sample for many rows
 (:mod:`service.stats.warm_start`), else from the intercept-only ``logit(ybar)``, then the
 existence checks (:mod:`service.stats.diagnostics`) and the statistics.
 
@@ -29,16 +30,15 @@ from scipy.special import logit
 from service.errors import RankDeficientError
 
 from .blocks import BlockSource, array_blocks, sub_blocks
-from .diagnostics import check_counts, check_rank, check_separation
-from .fit_options import fit_options
-from .likelihood import DataSummary, Totals, loglik_pass, scan
-from .newton import NewtonResult, Objective, State, newton, rounding_safe
+from .diagnostics import check_separation
+from .fit_options import FitOptions, fit_options
+from .fit_start import newton_from_scan
+from .likelihood import DataSummary, loglik_pass, scan
+from .newton import NewtonResult, Objective, State, newton
 from .row_sample import RowSample
 from .warm_start import (
-    CHORD_MAX_STEPS,
     WARM_START_MIN_ROWS,
     SampleStart,
-    first_state,
     start_for,
 )
 
@@ -50,7 +50,6 @@ __all__ = [
     "fit_from_scan",
     "fit_logistic",
     "fit_logistic_blocks",
-    "newton_from_scan",
 ]
 
 Method = Literal["mle", "firth", "ridge"]
@@ -83,15 +82,6 @@ class LogisticFit:
     warnings: tuple[str, ...]
     intercept_index: int | None = 0
     null_penalized_loglik: float = float("nan")  # intercept-only, same penalty (Firth LR tests)
-
-
-def _start_totals(s: DataSummary, coef: np.ndarray, intercept_index: int | None) -> Totals:
-    """Log-likelihood, score and information at the constant-eta start, without a pass."""
-    a = 0.0 if intercept_index is None else float(coef[intercept_index])
-    mu = 1.0 / (1.0 + np.exp(-a))
-    loglik = s.n_events * a - s.sum_weights * float(np.logaddexp(0.0, a))
-    assert s.xtwx is not None  # a scan with cross-products
-    return Totals(loglik, s.xtwy - mu * s.xtw, mu * (1.0 - mu) * s.xtwx, 0)
 
 
 def _null_loglik(
@@ -146,14 +136,15 @@ def fit_logistic_blocks(
     ``in_memory`` (the blocks are in memory, so a pass costs computing, not reading): Newton
     may take rounded steps, and starts after up to
     :data:`~service.stats.warm_start.CHORD_MAX_STEPS` chord steps from the sample's maximum
-    (see :func:`newton_from_scan`); data read from files get neither, since there every pass
-    costs a read of the file whatever it computes.
+    (:func:`~service.stats.fit_start.newton_from_scan`); data read from files get neither,
+    since there every pass costs a read of the file whatever it computes.
 
     Raises SingleClassError, TooFewObservationsError, RankDeficientError,
     SeparationError (``details["terms"]``; mle only), DataError, SpecError.
     Non-convergence is reported in ``converged`` / ``stop_reason``, not raised.
     """
-    names = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
+    opts = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
+    names = opts.names
     sample = RowSample() if method == "mle" else None
     light = sample is not None and many_rows
     summary = scan(blocks, n_terms, names, sample, cross_products=not light)
@@ -165,12 +156,7 @@ def fit_logistic_blocks(
     return fit_from_scan(
         lambda mask: Objective(blocks, method, ridge_lambda, mask),
         summary,
-        names,
-        method=method,
-        ridge_lambda=ridge_lambda,
-        intercept_index=intercept_index,
-        max_iter=max_iter,
-        tol=tol,
+        opts,
         start=start,
         separation_blocks=lambda: blocks,
         null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
@@ -181,135 +167,26 @@ def fit_logistic_blocks(
 def fit_from_scan(
     make_objective: Callable[[np.ndarray], Objective],
     summary: DataSummary,
-    names: tuple[str, ...],
+    opts: FitOptions,
     *,
-    method: str,
-    ridge_lambda: float,
-    intercept_index: int | None,
-    max_iter: int,
-    tol: float,
     start: SampleStart | None,
     separation_blocks: Callable[[], BlockSource],
     null_logliks: Callable[[], tuple[float, float]],
     in_memory: bool = False,
 ) -> LogisticFit:
-    """Everything after the scan, for every engine: :func:`newton_from_scan`, then
-    :func:`finish_fit` (see both for the arguments)."""
-    res = newton_from_scan(
-        make_objective,
-        summary,
-        names,
-        method=method,
-        ridge_lambda=ridge_lambda,
-        intercept_index=intercept_index,
-        max_iter=max_iter,
-        tol=tol,
-        start=start,
-        in_memory=in_memory,
-    )
+    """Everything after the scan, for every engine:
+    :func:`~service.stats.fit_start.newton_from_scan`, then :func:`finish_fit` (see both for
+    the arguments)."""
+    res = newton_from_scan(make_objective, summary, opts, start=start, in_memory=in_memory)
     return finish_fit(
-        summary,
-        res,
-        names,
-        method,
-        ridge_lambda,
-        intercept_index,
-        separation_blocks=separation_blocks,
-        null_logliks=null_logliks,
-    )
-
-
-def newton_from_scan(
-    make_objective: Callable[[np.ndarray], Objective],
-    summary: DataSummary,
-    names: tuple[str, ...],
-    *,
-    method: str,
-    ridge_lambda: float,
-    intercept_index: int | None,
-    max_iter: int,
-    tol: float,
-    start: SampleStart | None = None,
-    in_memory: bool = False,
-) -> NewtonResult:
-    """Existence checks on the scan, then Newton from the intercept-only start (every engine).
-
-    ``make_objective(penalty_mask)`` builds the engine's objective; the mask is 1 for every
-    penalised coefficient (all but the intercept). Without an offset the start state comes from
-    the scan's sums, with no pass. A ``start`` (the maximum on a sample of the rows) costs
-    passes without the information and one with it
-    (:func:`~service.stats.warm_start.first_state`: one chord step, or up to
-    :data:`~service.stats.warm_start.CHORD_MAX_STEPS` ``in_memory``, where a pass without the
-    information costs a fraction of a full one) and replaces the intercept-only start when
-    its penalised log-likelihood is higher (with an offset, whenever it can be evaluated: the
-    intercept-only start would cost a pass of its own, and Newton's step-halving climbs from
-    any start). ``in_memory``, Newton takes rounded steps when the problem allows
-    (:func:`~service.stats.newton.rounding_safe` on the sample's information, else on the
-    scan's ``X' W X``); they save computing, not reading.
-    """
-    p = len(names)
-    check_counts(summary, p)
-    if summary.xtwx is not None and (method != "ridge" or ridge_lambda == 0):
-        check_rank(summary.xtwx, names)
-    mask = np.ones(p)
-    if intercept_index is not None:
-        mask[intercept_index] = 0.0
-    obj = make_objective(mask)
-    rounded = in_memory and _rounding_safe(summary, start)
-    warm = None
-    if start is not None:
-        steps = CHORD_MAX_STEPS if in_memory else 1
-        warm = first_state(obj, start, summary.sum_weights, rounded=rounded, max_chord_steps=steps)
-    if summary.xtwx is None:  # a scan without cross-products: the rank check on X' W X here
-        if warm is None:
-            raise _singular_start(names)
-        if not warm.rounded:
-            check_rank(warm.info, names)
-        res = newton(obj, warm, np.ones(p, bool), max_iter=max_iter, tol=tol, rounded=rounded)
-        if warm.rounded:  # on the final information, the first exact one
-            check_rank(res.state.info, names)
-        return res
-    coef0 = np.zeros(p)
-    if intercept_index is not None:
-        coef0[intercept_index] = logit(summary.n_events / summary.sum_weights)
-    if not summary.has_offset:
-        state0 = obj.from_totals(coef0, _start_totals(summary, coef0, intercept_index))
-    elif warm is None:
-        state0 = obj.evaluate(coef0)
-    else:
-        state0 = warm
-    if state0 is None:
-        raise _singular_start(names)
-    if warm is not None and warm.penalized_loglik > state0.penalized_loglik:
-        state0 = warm
-    return newton(obj, state0, np.ones(p, bool), max_iter=max_iter, tol=tol, rounded=rounded)
-
-
-def _rounding_safe(summary: DataSummary, start: SampleStart | None) -> bool:
-    """Whether Newton may take rounded steps (:func:`~service.stats.newton.rounding_safe`),
-    judged on the sample's information or else on the scan's ``X' W X``."""
-    if start is not None:
-        return rounding_safe(start.info, start.sample_weight)
-    return summary.xtwx is not None and rounding_safe(summary.xtwx, summary.sum_weights)
-
-
-def _singular_start(names: tuple[str, ...]) -> RankDeficientError:
-    return RankDeficientError(
-        "the information matrix is singular at the start",
-        field="X",
-        value=list(names),
-        remedy="remove redundant terms",
-        details={"terms": list(names)},
+        summary, res, opts, separation_blocks=separation_blocks, null_logliks=null_logliks
     )
 
 
 def finish_fit(
     summary: DataSummary,
     res: NewtonResult,
-    names: tuple[str, ...],
-    method: str,
-    ridge_lambda: float,
-    intercept_index: int | None,
+    opts: FitOptions,
     *,
     separation_blocks: Callable[[], BlockSource],
     null_logliks: Callable[[], tuple[float, float]],
@@ -321,6 +198,7 @@ def finish_fit(
     ``separation_blocks()`` gives (an engine may gather them only then); ``null_logliks()``
     returns the intercept-only (unpenalised, penalised) log-likelihoods.
     """
+    names, method, intercept_index = opts.names, opts.method, opts.intercept_index
     st = res.state
     p = st.coef.shape[0]
     try:
@@ -358,7 +236,7 @@ def finish_fit(
         sum_weights=summary.sum_weights,
         n_events=summary.n_events,
         method=method,
-        ridge_lambda=float(ridge_lambda),
+        ridge_lambda=float(opts.ridge_lambda),
         converged=converged,
         iterations=int(res.iterations),
         stop_reason=stop,

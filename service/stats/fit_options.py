@@ -3,14 +3,27 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
 
 from service.errors import SpecError
 
-__all__ = ["METHODS", "fit_options"]
+__all__ = ["METHODS", "FitOptions", "fit_options"]
 
 METHODS = ("mle", "firth", "ridge")
+
+
+@dataclass(frozen=True)
+class FitOptions:
+    """A fit's checked options, as every engine passes them on (:func:`fit_options`)."""
+
+    names: tuple[str, ...]  # term names, one per column of X
+    method: str
+    ridge_lambda: float
+    intercept_index: int | None
+    max_iter: int
+    tol: float
 
 
 def fit_options(
@@ -21,8 +34,9 @@ def fit_options(
     intercept_index: int | None,
     max_iter: int,
     tol: float,
-) -> tuple[str, ...]:
-    """The term names (given, or ``intercept``/``x<j>``) after checking every option."""
+) -> FitOptions:
+    """The options, with the term names (given, or ``intercept``/``x<j>``), after checking
+    every one of them."""
     if method not in METHODS:
         raise SpecError(
             f"unknown fitting method {method!r}",
@@ -59,7 +73,8 @@ def fit_options(
             remedy="use the defaults (max_iter=100, tol=1e-10)",
         )
     if term_names is None:
-        return tuple("intercept" if j == intercept_index else f"x{j}" for j in range(n_terms))
+        names = tuple("intercept" if j == intercept_index else f"x{j}" for j in range(n_terms))
+        return FitOptions(names, method, float(ridge_lambda), intercept_index, max_iter, tol)
     names = tuple(str(t) for t in term_names)
     if len(names) != n_terms or len(set(names)) != n_terms:
         raise SpecError(
@@ -68,4 +83,4 @@ def fit_options(
             value=list(names),
             remedy="give one distinct name per column of X",
         )
-    return names
+    return FitOptions(names, method, float(ridge_lambda), intercept_index, max_iter, tol)

@@ -6,7 +6,9 @@ import numpy as np
 import statsmodels.api as sm
 
 from service.stats.blocks import Block, array_blocks
-from service.stats.fit import fit_logistic, newton_from_scan
+from service.stats.fit import fit_logistic
+from service.stats.fit_options import FitOptions
+from service.stats.fit_start import newton_from_scan
 from service.stats.likelihood import scan
 from service.stats.newton import Objective, newton
 from service.stats.row_sample import RowSample
@@ -42,12 +44,7 @@ def _cold(X: np.ndarray, y: np.ndarray, w: np.ndarray, off: np.ndarray):  # type
     return newton_from_scan(
         lambda m: Objective(blocks, "mle", 0.0, mask),
         summary,
-        names,
-        method="mle",
-        ridge_lambda=0.0,
-        intercept_index=0,
-        max_iter=100,
-        tol=1e-10,
+        FitOptions(names, "mle", 0.0, 0, 100, 1e-10),
     )
 
 
