@@ -40,6 +40,7 @@ with the acting key id. Key creation and revocation are recorded by :func:`issue
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import hmac
 import secrets
@@ -70,10 +71,10 @@ __all__ = [
     "KEY_PREFIX",
     "IssuedKey",
     "KeyCache",
+    "admit",
     "authenticate_first",
     "authorize",
     "caller_known",
-    "check_role",
     "hash_key",
     "install_audit",
     "issue_key",
@@ -291,14 +292,27 @@ def _principal_from_store(request: Request) -> Principal:
         return _principal(request, session)
 
 
+_ROLE_ATTR = "_riskfit_least_role"  # the answer of _route_role, kept on the route object
+_UNKNOWN = object()
+
+
 def _route_role(route: Any) -> str | None:
     """The least role a route admits: the ``require_<role>`` among its dependencies."""
+    if route is None:
+        return None
+    known = getattr(route, _ROLE_ATTR, _UNKNOWN)
+    if known is not _UNKNOWN:
+        return known  # type: ignore[return-value]
+    role = None
     dependant = getattr(route, "dependant", None)
     for dep in getattr(dependant, "dependencies", ()):
         name = getattr(dep.call, "__name__", "")
         if name.startswith("require_") and name[8:] in ROLE_RANK:
-            return name[8:]
-    return None
+            role = name[8:]
+            break
+    with contextlib.suppress(AttributeError):  # a route class with __slots__: look again
+        setattr(route, _ROLE_ATTR, role)
+    return role
 
 
 async def authenticate_first(request: Request) -> None:
@@ -312,15 +326,23 @@ async def authenticate_first(request: Request) -> None:
     request's session to the caller found here (:func:`caller_known`).
     """
     role = _route_role(request.scope.get("route"))
-    if role is None:
-        return
+    if role is not None:
+        await admit(request, role)
+
+
+async def admit(request: Request, role: str) -> Principal:
+    """The caller of ``request`` if it holds ``role`` (401/403 as :func:`authorize`).
+
+    Identifies the caller once per request (no I/O with auth off or a fresh cached key, one
+    thread hop for a store read); later calls are a rank comparison.
+    """
     known: Principal | None = getattr(request.state, "riskfit_principal", None)
     if known is None:
         known = _quick_principal(request)
         if known is None:
             known = await run_in_threadpool(_principal_from_store, request)
         caller_known(request, known)
-    _rank_check(request, known, role)  # the caller is known: a rank comparison only
+    return _rank_check(request, known, role)
 
 
 def caller_known(request: Request, principal: Principal) -> None:
@@ -329,12 +351,6 @@ def caller_known(request: Request, principal: Principal) -> None:
     session: Session | None = getattr(request.state, "riskfit_session", None)
     if session is not None:
         install_audit(session, key_id=principal.key_id)
-
-
-def check_role(request: Request, role: str) -> Principal:
-    """The known caller of ``request`` if it holds ``role`` (after :func:`authenticate_first`)."""
-    known: Principal = request.state.riskfit_principal
-    return _rank_check(request, known, role)
 
 
 def own_key_headers(app: Any, *, role: str = "modeler", name: str = "demo") -> dict[str, str]:

@@ -131,11 +131,9 @@ def require_role(role: Role) -> Callable[..., Awaitable[Principal]]:
         )
         if checker is not None:
             return await run_in_threadpool(checker, request, role)
-        from service.security import authenticate_first, check_role  # security imports us
+        from service.security import admit  # security imports us
 
-        if getattr(request.state, "riskfit_principal", None) is None:
-            await authenticate_first(request)  # (the router-level check normally ran first)
-        return check_role(request, role)  # the caller is known: a rank comparison only
+        return await admit(request, role)  # after the router-level check: a rank comparison
 
     check_access.__name__ = f"require_{role}"
     return check_access

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass, field
+from typing import Any
 
 from prometheus_client import CollectorRegistry, Counter, Histogram
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
@@ -25,6 +26,11 @@ class AppMetrics:
     )
 
     def __post_init__(self) -> None:
+        # Children by label values: prometheus_client checks and locks on every labels() call,
+        # a few microseconds twice per request. Label sets are bounded (route templates,
+        # methods, statuses, model names).
+        self._request_children: dict[tuple[str, str, int], tuple[Any, Any]] = {}
+        self._scored_children: dict[str, Any] = {}
         r = self.registry
         self.requests = Counter(
             "riskfit_http_requests",
@@ -58,6 +64,25 @@ class AppMetrics:
             buckets=(0.01, 0.05, 0.1, 0.5, 1, 2, 5, 10, 30, 60, 300),
         )
 
+    def request_done(self, route: str, method: str, status: int, seconds: float) -> None:
+        """Count one request and observe its duration."""
+        key = (route, method, status)
+        children = self._request_children.get(key)
+        if children is None:
+            children = self._request_children[key] = (
+                self.requests.labels(route, method, str(status)),
+                self.latency.labels(route, method),
+            )
+        children[0].inc()
+        children[1].observe(seconds)
+
+    def scored(self, model: str, records: int) -> None:
+        """Count ``records`` records scored with ``model``."""
+        child = self._scored_children.get(model)
+        if child is None:
+            child = self._scored_children[model] = self.records_scored.labels(model)
+        child.inc(records)
+
 
 class MetricsMiddleware:
     """Counts and times every HTTP request; the route label is the path template."""
@@ -85,5 +110,4 @@ class MetricsMiddleware:
             route = scope.get("route")
             label = getattr(route, "path", None) or "unmatched"
             method = scope.get("method", "")
-            self.metrics.requests.labels(label, method, str(status)).inc()
-            self.metrics.latency.labels(label, method).observe(time.perf_counter() - start)
+            self.metrics.request_done(label, method, status, time.perf_counter() - start)
