@@ -31,7 +31,7 @@ re-checked on conflict, exactly as on PostgreSQL. An engine made with
 
 Errors
 ------
-:func:`_store_unavailable` is the one place where a database failure that is not the client's
+:func:`store_unavailable` is the one place where a database failure that is not the client's
 fault (unreachable server, locked database, missing tables) becomes
 :class:`service.errors.StoreError`; the engine's ``handle_error`` hook sends every SQLAlchemy
 ``OperationalError``/``InterfaceError`` through it, chained with ``from``.
@@ -65,6 +65,7 @@ __all__ = [
     "make_session_factory",
     "ping",
     "session_scope",
+    "store_unavailable",
     "upgrade",
 ]
 
@@ -161,10 +162,10 @@ def _take_write_lock(cursor: Any) -> None:
         cursor.execute("BEGIN IMMEDIATE")
     except Exception as error:  # sqlite3.OperationalError, raised outside SQLAlchemy's wrapper
         cursor.execute("BEGIN DEFERRED")  # keep SQLAlchemy's view (a transaction is open) true
-        raise _store_unavailable(str(error), "sqlite") from error
+        raise store_unavailable(str(error), "sqlite") from error
 
 
-def _store_unavailable(message: str, backend: str | None) -> StoreError:
+def store_unavailable(message: str, backend: str | None) -> StoreError:
     """The one translation of infrastructure failures into :class:`StoreError`."""
     first_line = (message.strip().splitlines() or [""])[0][:300]
     if "no such table" in first_line:
@@ -186,7 +187,7 @@ def _translate_operational_error(context: ExceptionContext) -> None:
     if not isinstance(error, exc.OperationalError | exc.InterfaceError):
         return
     backend = context.dialect.name if context.dialect else None
-    raise _store_unavailable(str(context.original_exception), backend) from error
+    raise store_unavailable(str(context.original_exception), backend) from error
 
 
 def make_session_factory(engine: Engine) -> sessionmaker[Session]:

@@ -27,6 +27,7 @@ __all__ = [
     "ScoreParams",
     "add_score_batch",
     "add_scores",
+    "bound_time",
     "checkpoint_wal",
     "count_scores",
     "find_scores_by_keys",
@@ -148,7 +149,7 @@ def score_rows_params(
     """Rows as driver tuples ``(id, model_id, version_number, key, inputs, eta, se_eta,
     probability, created_at)``; the time converted once by the column type (no checks)."""
     n = len(batch["ids"])
-    at = [_bound_time(dialect, batch["created_at"])] * n
+    at = [bound_time(dialect, batch["created_at"])] * n
     ints = ([model_id] * n, [batch["version_number"]] * n)
     keys = batch["keys"] or [None] * n
     numbers = (batch["eta"], batch["se_eta"], batch["probability"])
@@ -179,7 +180,7 @@ def insert_fresh_scores(*, session: Session, model_id: int, **batch: Unpack[Scor
         params = score_rows_params(dialect=conn.dialect, model_id=model_id, **batch)
         insert_score_params(session=session, params=params)
         return
-    at = _bound_time(conn.dialect, batch["created_at"])
+    at = bound_time(conn.dialect, batch["created_at"])
     if not isinstance(at, str) or "'" in at:
         raise TypeError(f"unexpected SQLite time text {at!r}")
     columns = [batch[c] for c in ("ids", "inputs_json", "eta", "se_eta", "probability")]
@@ -210,12 +211,16 @@ def checkpoint_wal(session: Session) -> None:
         session.commit()
 
 
-def _bound_time(dialect: Dialect, created_at: datetime) -> Any:
+def bound_time(dialect: Dialect, created_at: datetime) -> Any:
     """``created_at`` as the driver receives it: the column type's full bind processing for
     ``dialect`` (on SQLite the text with six fraction digits that Core inserts write), once."""
-    column_type = _TABLE.c.created_at.type.dialect_impl(dialect)
-    process = column_type.bind_processor(dialect)
+    process = _time_processor(dialect)
     return process(created_at) if process is not None else created_at
+
+
+@functools.lru_cache(maxsize=8)
+def _time_processor(dialect: Dialect) -> Any:
+    return _TABLE.c.created_at.type.dialect_impl(dialect).bind_processor(dialect)
 
 
 @functools.lru_cache(maxsize=8)

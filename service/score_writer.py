@@ -19,6 +19,12 @@ its own (:func:`models_store.scores.insert_fresh_scores`). After answering a gro
 checkpoints SQLite's write-ahead log once enough rows have gone in (:data:`CHECKPOINT_ROWS`),
 so that no COMMIT a request waits for has to do it.
 
+On SQLite a group of small keyless requests (the common case: single records and small
+batches) skips the session: its rows go in one autocommitted statement on a connection the
+writer keeps (:mod:`service.score_append_path`), which also checks the champion. Anything
+that statement cannot settle (a key, a big batch, a model or version gone, PostgreSQL) takes
+the session path below; a store failure settles the group with :class:`StoreError` as there.
+
 Rows scored with the champion (``ScoreRows.checks_champion``) are checked against the champion
 read inside the commit's write transaction (:func:`check_champion`: one indexed read per model
 and group; on SQLite the transaction is ``BEGIN IMMEDIATE`` from its start, so no champion
@@ -34,25 +40,18 @@ import asyncio
 import contextlib
 import queue
 import threading
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Mapping
 from concurrent.futures import Future
 from dataclasses import dataclass
-from datetime import datetime
 from typing import Any
 
+from sqlalchemy.engine import Engine
 from sqlalchemy.orm import Session
 
-from models_store.champions import model_with_champion
-from models_store.orm import RiskModel
-from models_store.scores import (
-    ScoreBatch,
-    ScoreParams,
-    add_score_batch,
-    checkpoint_wal,
-    insert_score_params,
-    score_rows_params,
-)
+from models_store.scores import ScoreParams, checkpoint_wal, insert_score_params
 from service.errors import RiskfitError, StoreError
+from service.score_append_path import OWN_STATEMENT_ROWS, SqliteAppender, appends_to
+from service.score_rows import ChampionChangedError, ScoreRows, begin_write, check_champion
 
 __all__ = [
     "ChampionChangedError",
@@ -64,90 +63,7 @@ __all__ = [
 ]
 
 MAX_GROUP_ROWS = 20_000  # rows per group commit (a bound on one transaction's size)
-OWN_STATEMENT_ROWS = 256  # keyless batches this big get a statement with their constants inlined
 CHECKPOINT_ROWS = 5_000  # rows committed between the writer's own WAL checkpoints (SQLite)
-# SQLite: take the write lock at BEGIN (models_store.db's documented execution option), so the
-# champion read and the insert see one state of the store; PostgreSQL ignores the option.
-_WRITE_TXN = {"riskfit_sqlite_begin": "IMMEDIATE"}
-
-
-class ChampionChangedError(Exception):
-    """The rows were scored with a version that is no longer the champion; nothing written.
-
-    ``number`` is the champion the commit read (None: the model has none). Never reaches a
-    client: the scoring route scores again with ``number``.
-    """
-
-    def __init__(self, model_id: int, number: int | None) -> None:
-        super().__init__(f"the champion of model {model_id} is now {number}")
-        self.model_id = model_id
-        self.number = number
-
-
-@dataclass(frozen=True)
-class ScoreRows:
-    """One request's score-log rows, columnar (see :func:`models_store.scores.add_score_batch`)."""
-
-    model: RiskModel
-    version_number: int
-    ids: Sequence[str]
-    keys: Sequence[str | None] | None
-    inputs_json: Sequence[str]
-    eta: Sequence[float]
-    se_eta: Sequence[float]
-    probability: Sequence[float]
-    created_at: datetime
-    checks_champion: bool = False  # scored with the champion: must still be it at commit
-
-    def columns(self) -> ScoreBatch:
-        """The rows by column, as the store's insert functions take them."""
-        return ScoreBatch(
-            version_number=self.version_number,
-            ids=self.ids,
-            keys=self.keys,
-            inputs_json=self.inputs_json,
-            eta=self.eta,
-            se_eta=self.se_eta,
-            probability=self.probability,
-            created_at=self.created_at,
-        )
-
-    def params(self, session: Session) -> list[ScoreParams]:
-        """The rows as driver parameters (:func:`models_store.scores.score_rows_params`)."""
-        dialect = session.get_bind().dialect
-        return score_rows_params(dialect=dialect, model_id=self.model.id, **self.columns())
-
-    def insert(self, session: Session) -> None:
-        add_score_batch(session=session, model=self.model, **self.columns())
-
-
-def check_champion(
-    session: Session,
-    rows: ScoreRows,
-    seen: Callable[[int, int | None], None] | None = None,
-    read: dict[int, int | None] | None = None,
-) -> None:
-    """Raise :class:`ChampionChangedError` unless ``rows`` may be written in this transaction.
-
-    Rows that do not claim the champion pass. ``seen(model id, champion)`` is told what was
-    read; ``read`` (model id -> champion) keeps the reads of one transaction.
-    """
-    if not rows.checks_champion:
-        return
-    read = {} if read is None else read
-    model_id = rows.model.id
-    if model_id not in read:
-        found = model_with_champion(session=session, name=rows.model.name)
-        read[model_id] = None if found is None else found[1]
-        if seen is not None:
-            seen(model_id, read[model_id])
-    if read[model_id] != rows.version_number:
-        raise ChampionChangedError(model_id, read[model_id])
-
-
-def begin_write(session: Session) -> None:
-    """Start ``session``'s transaction as a writer (SQLite: ``BEGIN IMMEDIATE``)."""
-    session.connection(execution_options=_WRITE_TXN)
 
 
 @dataclass(frozen=True)
@@ -196,6 +112,7 @@ class ScoreLogWriter:
         self._factory = session_factory
         self._seen = champion_seen
         self._queue: queue.SimpleQueue[_Job | None] = queue.SimpleQueue()
+        self._appends: SqliteAppender | bool | None = None  # None: not looked at yet; False: no
         self._thread = threading.Thread(target=self._run, name="riskfit-score-log", daemon=True)
         self._thread.start()
         self.groups = 0  # commits made (for tests and metrics); all-refused groups make none
@@ -226,6 +143,8 @@ class ScoreLogWriter:
         """Finish the queued groups and stop the thread."""
         self._queue.put(None)
         self._thread.join(timeout=30)
+        if not self._thread.is_alive() and isinstance(self._appends, SqliteAppender):
+            self._appends.close()
 
     def _take_group(self, first: _Job) -> tuple[list[_Job], bool]:
         group, size, stop = [first], len(first[0].ids), False
@@ -252,6 +171,42 @@ class ScoreLogWriter:
                 return
 
     def _commit(self, group: list[_Job]) -> None:
+        appender = self._appender()
+        if appender is not None and appender.takes([rows for rows, _ in group]):
+            try:
+                outcome = appender.append([rows for rows, _ in group])
+            except StoreError as failure:  # nothing of the group was stored
+                _settle(group, dict.fromkeys(range(len(group)), failure))
+                return
+            if outcome is not None:
+                inserted, errors = outcome
+                self.groups += inserted > 0
+                _settle(group, errors)
+                self._after_commit(inserted)
+                return
+        self._commit_in_session(group)
+
+    def _appender(self) -> SqliteAppender | None:
+        """The SQLite one-statement path, made on first use (None: not this store)."""
+        if self._appends is None:
+            with self._factory() as session:
+                bind = session.get_bind()
+            engine = bind if isinstance(bind, Engine) else None  # not a test's outer transaction
+            self._appends = (
+                SqliteAppender(engine, self._seen)
+                if engine is not None and appends_to(engine)
+                else False
+            )
+        return self._appends if isinstance(self._appends, SqliteAppender) else None
+
+    def _after_commit(self, rows: int) -> None:
+        self._since_checkpoint += rows
+        if self._since_checkpoint >= CHECKPOINT_ROWS:  # after answering: off the request's path
+            self._since_checkpoint = 0
+            with contextlib.suppress(Exception), self._factory() as session:
+                checkpoint_wal(session)  # a failure here only leaves the WAL to SQLite
+
+    def _commit_in_session(self, group: list[_Job]) -> None:
         own_errors: dict[int, Exception] = {}
         try:
             with self._factory() as session:
@@ -284,11 +239,7 @@ class ScoreLogWriter:
             return
         self.groups += committed
         _settle(group, own_errors)
-        self._since_checkpoint += sum(len(rows.ids) for rows, _ in group) if committed else 0
-        if self._since_checkpoint >= CHECKPOINT_ROWS:  # after answering: off the request's path
-            self._since_checkpoint = 0
-            with contextlib.suppress(Exception), self._factory() as session:
-                checkpoint_wal(session)  # a failure here only leaves the WAL to SQLite
+        self._after_commit(sum(len(rows.ids) for rows, _ in group) if committed else 0)
 
 
 def _settle(group: list[_Job], errors: Mapping[int, BaseException]) -> None:
