@@ -15,6 +15,7 @@ stay small for large batches.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -39,6 +40,7 @@ class Prediction:
     confidence_level: float
 
 
+@functools.lru_cache(maxsize=64)  # a service sees a handful of levels, each on every request
 def z_value(confidence_level: float) -> float:
     """Two-sided standard-normal quantile for ``confidence_level`` in (0, 1)."""
     if not 0.0 < confidence_level < 1.0:
@@ -87,14 +89,16 @@ def predict(
     eta = X @ coef
     if offset is not None:
         eta = eta + np.asarray(offset, dtype=np.float64)
-    se = np.empty(X.shape[0])
-    for start in range(0, X.shape[0], _CHUNK):
-        Xc = X[start : start + _CHUNK]
-        se[start : start + _CHUNK] = np.einsum("ij,ij->i", np.dot(Xc, cov), Xc)  # GIL released
-    se = np.sqrt(np.clip(se, 0.0, None))
-    return Prediction(
-        eta, se, expit(eta), expit(eta - z * se), expit(eta + z * se), confidence_level
-    )
+    if X.shape[0] <= _CHUNK:
+        se = np.einsum("ij,ij->i", np.dot(X, cov), X)
+    else:
+        se = np.empty(X.shape[0])
+        for start in range(0, X.shape[0], _CHUNK):
+            Xc = X[start : start + _CHUNK]
+            se[start : start + _CHUNK] = np.einsum("ij,ij->i", np.dot(Xc, cov), Xc)  # no GIL
+    se = np.sqrt(np.maximum(se, 0.0))  # rounding can leave -0 or -1e-17
+    half = z * se
+    return Prediction(eta, se, expit(eta), expit(eta - half), expit(eta + half), confidence_level)
 
 
 def contributions(X: np.ndarray, coef: np.ndarray) -> np.ndarray:
