@@ -58,6 +58,7 @@ from service.errors import StoreError
 __all__ = [
     "MIGRATIONS_DIR",
     "alembic_config",
+    "apply_sqlite_pragmas",
     "check_integrity",
     "current_revision",
     "head_revision",
@@ -128,17 +129,7 @@ def make_engine(
 def _install_sqlite_hooks(engine: Engine, busy_timeout_ms: int, synchronous: SqliteSync) -> None:
     @event.listens_for(engine, "connect")
     def _set_pragmas(dbapi_connection: Any, _record: Any) -> None:
-        dbapi_connection.isolation_level = None  # the driver must not issue BEGIN itself
-        cursor = dbapi_connection.cursor()
-        try:
-            cursor.execute(f"PRAGMA busy_timeout = {int(busy_timeout_ms)}")
-            cursor.execute("PRAGMA foreign_keys = ON")
-            cursor.execute("PRAGMA journal_mode = WAL")
-            cursor.execute(f"PRAGMA synchronous = {synchronous}")
-            cursor.execute(f"PRAGMA cache_size = -{SQLITE_CACHE_KIB}")  # negative: KiB
-            cursor.execute(f"PRAGMA mmap_size = {SQLITE_MMAP_BYTES}")  # reads share OS pages
-        finally:
-            cursor.close()
+        apply_sqlite_pragmas(dbapi_connection, busy_timeout_ms, synchronous)
 
     @event.listens_for(engine, "begin")
     def _begin(conn: Connection) -> None:
@@ -153,6 +144,24 @@ def _install_sqlite_hooks(engine: Engine, busy_timeout_ms: int, synchronous: Sql
         if statement.lstrip()[:9].upper().startswith(_WRITE_PREFIXES):
             _take_write_lock(cursor)
             conn.info[_WRITING] = True
+
+
+def apply_sqlite_pragmas(dbapi_connection: Any, busy_timeout_ms: int, synchronous: str) -> None:
+    """The settings of every riskfit SQLite connection (see the module docstring); the driver's
+    own transaction handling off (``isolation_level = None``)."""
+    if synchronous not in ("NORMAL", "FULL"):
+        raise ValueError(f"sqlite synchronous must be NORMAL or FULL, not {synchronous!r}")
+    dbapi_connection.isolation_level = None  # the driver must not issue BEGIN itself
+    cursor = dbapi_connection.cursor()
+    try:
+        cursor.execute(f"PRAGMA busy_timeout = {int(busy_timeout_ms)}")
+        cursor.execute("PRAGMA foreign_keys = ON")
+        cursor.execute("PRAGMA journal_mode = WAL")
+        cursor.execute(f"PRAGMA synchronous = {synchronous}")
+        cursor.execute(f"PRAGMA cache_size = -{SQLITE_CACHE_KIB}")  # negative: KiB
+        cursor.execute(f"PRAGMA mmap_size = {SQLITE_MMAP_BYTES}")  # reads share OS pages
+    finally:
+        cursor.close()
 
 
 def _take_write_lock(cursor: Any) -> None:

@@ -28,7 +28,14 @@ from typing import Any
 
 from models_store.orm import ChampionChange, Score
 
-__all__ = ["APPEND_MAX_ROWS", "FreshRows", "append_fresh", "current_champion_of", "present_ids"]
+__all__ = [
+    "APPEND_MAX_ROWS",
+    "FreshRows",
+    "append_fresh",
+    "append_requests",
+    "current_champion_of",
+    "present_ids",
+]
 
 APPEND_MAX_ROWS = 1_000  # rows per statement: 9 bound values each (SQLite allows 32,766)
 
@@ -86,3 +93,29 @@ def current_champion_of(cursor: Any, model_id: int) -> int | None:
     )
     row = cursor.fetchone()
     return None if row is None else int(row[0])
+
+
+def append_requests(
+    cursor: Any, requests: Sequence[Sequence[FreshRows]]
+) -> tuple[int, dict[int, int | None]]:
+    """Append the rows of several requests (at most :data:`APPEND_MAX_ROWS` in all) at once.
+
+    Returns (rows inserted, refused) where ``refused`` maps the position of each request
+    whose champion claim did not hold to its model's champion now (None: it has none).
+    """
+    fresh = [row for rows in requests for row in rows]
+    inserted = append_fresh(cursor, fresh)
+    if inserted == len(fresh):
+        return inserted, {}
+    claims = [i for i, rows in enumerate(requests) if rows[0][8]]
+    present = present_ids(cursor, [requests[i][0][0] for i in claims])
+    champions: dict[int, int | None] = {}
+    refused: dict[int, int | None] = {}
+    for i in claims:
+        first = requests[i][0]
+        if first[0] in present:
+            continue
+        if first[1] not in champions:
+            champions[first[1]] = current_champion_of(cursor, first[1])
+        refused[i] = champions[first[1]]
+    return inserted, refused

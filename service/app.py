@@ -26,6 +26,8 @@ from service.config import Settings, get_settings
 from service.heap import server_heap
 from service.limits import LimitsMiddleware
 from service.schemas import ErrorResponse
+from service.score_append_path import appends_to
+from service.score_log_channel import ScoreLogChannel
 from service.scoring import VersionCache
 from service.security import authenticate_first
 
@@ -75,10 +77,21 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         upgrade(engine)
         app.state.engine = engine
         app.state.session_factory = make_session_factory(engine)
+        channel = None
         try:
+            if settings.score_log_process and appends_to(engine):  # service.score_log_channel
+                channel = app.state.score_channel = ScoreLogChannel(
+                    engine,
+                    busy_timeout_ms=settings.sqlite_busy_timeout_ms,
+                    synchronous="FULL",  # as make_engine above
+                    seen=app.state.version_cache.champion_seen,
+                )
             with server_heap() if settings.tune_gc else nullcontext():  # service.heap
                 yield
         finally:
+            if channel is not None:
+                app.state.score_channel = None
+                await channel.close()
             engine.dispose()
 
     app = FastAPI(

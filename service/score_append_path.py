@@ -22,13 +22,7 @@ from typing import Any
 from sqlalchemy.engine import Engine
 
 from models_store.db import store_unavailable
-from models_store.score_append import (
-    APPEND_MAX_ROWS,
-    FreshRows,
-    append_fresh,
-    current_champion_of,
-    present_ids,
-)
+from models_store.score_append import APPEND_MAX_ROWS, append_requests
 from models_store.scores import bound_time
 from service.score_rows import ChampionChangedError, ScoreRows
 
@@ -64,19 +58,23 @@ class SqliteAppender:
 
     def append(self, group: Sequence[ScoreRows]) -> tuple[int, dict[int, Exception]] | None:
         """(rows inserted, each refused request's error by position), or None (see above)."""
+        dialect = self._engine.dialect
         try:
             cursor = self._cursor()
-            fresh: list[FreshRows] = []
-            for rows in group:
-                fresh += rows.fresh(bound_time(self._engine.dialect, rows.created_at))
-            inserted = append_fresh(cursor, fresh)
-            errors = {} if inserted == len(fresh) else self._refused(cursor, group)
+            requests = [rows.fresh(bound_time(dialect, rows.created_at)) for rows in group]
+            inserted, refused = append_requests(cursor, requests)
         except sqlite3.OperationalError as error:  # busy past the timeout, disk, schema
             self.close()
             raise store_unavailable(str(error), "sqlite") from error
         except sqlite3.Error:  # e.g. a foreign key: a model or version deleted meanwhile
             self.close()
             return None
+        errors: dict[int, Exception] = {}
+        for i, number in refused.items():
+            model_id = group[i].model.id
+            if self._seen is not None:
+                self._seen(model_id, number)
+            errors[i] = ChampionChangedError(model_id, number)
         return inserted, errors
 
     def close(self) -> None:
@@ -90,20 +88,3 @@ class SqliteAppender:
         if self._raw is None:
             self._raw = self._engine.raw_connection()  # the pool's connect hooks set pragmas
         return self._raw.driver_connection.cursor()
-
-    def _refused(self, cursor: Any, group: Sequence[ScoreRows]) -> dict[int, Exception]:
-        """The requests whose champion claim the statement refused (their first id is absent)."""
-        claims = [i for i, rows in enumerate(group) if rows.checks_champion]
-        present = present_ids(cursor, [group[i].ids[0] for i in claims])
-        champions: dict[int, int | None] = {}
-        errors: dict[int, Exception] = {}
-        for i in claims:
-            if group[i].ids[0] in present:
-                continue
-            model_id = group[i].model.id
-            if model_id not in champions:
-                champions[model_id] = current_champion_of(cursor, model_id)
-                if self._seen is not None:
-                    self._seen(model_id, champions[model_id])
-            errors[i] = ChampionChangedError(model_id, champions[model_id])
-        return errors

@@ -128,7 +128,11 @@ async def serve_scores(
         try:
             if body_bytes <= INLINE_MAX_BYTES:
                 scored = score()
-                await writer.submit_async(scored.rows)  # durable before the answer
+                channel = getattr(state, "score_channel", None)
+                if channel is not None and channel.takes(scored.rows):
+                    await channel.log(scored.rows, writer.submit_async)  # the child logs
+                else:
+                    await writer.submit_async(scored.rows)  # durable before the answer
                 return len(scored.rows.ids), scored.answer_json()
             scored = await run_in_threadpool(score)
             return len(scored.rows.ids), await run_in_threadpool(_log_and_answer, writer, scored)
