@@ -18,6 +18,7 @@ get :class:`StoreError` and later ones take the writer thread.
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import struct
 import subprocess
 import sys
@@ -78,47 +79,65 @@ class ScoreLogChannel:
         self._loop: asyncio.AbstractEventLoop | None = None
         self._process: subprocess.Popen[bytes] | None = None
         self._writer: asyncio.WriteTransport | None = None
-        self._starting = asyncio.Lock()
+        self._starting: asyncio.Task[None] | None = None
+        self._ready = asyncio.Event()  # the child has said it is connected to the store
         self._pending: dict[int, tuple[asyncio.Future[None], ScoreRows, _Fallback]] = {}
         self._seq = 0
         self._stopped = False  # the child exited or was closed: the writer thread logs
 
     @property
     def running(self) -> bool:
-        """The child has started and has not stopped."""
-        return self._process is not None and not self._stopped
+        """The child is connected to the store and has not stopped."""
+        return self._ready.is_set() and not self._stopped
 
     def takes(self, rows: ScoreRows) -> bool:
-        """Rows this channel logs: small and keyless, on its loop, while the child can run."""
+        """Rows this channel logs: small and keyless, on its loop, once the child is ready.
+
+        The first call starts the child in the background: until it is ready (its imports
+        take about half a second) the writer thread logs, so no request waits for it.
+        """
         if self._stopped or not SqliteAppender.takes([rows]):
             return False
-        return self._loop is None or self._on_loop()
+        if self._starting is None:
+            self._starting = asyncio.get_running_loop().create_task(self._start())
+            return False
+        return self._ready.is_set() and self._on_loop()
+
+    async def started(self, timeout: float = 30.0) -> bool:
+        """Start the child if need be and wait until it is ready; False: it is not running."""
+        if self._starting is None and not self._stopped:
+            self._starting = asyncio.get_running_loop().create_task(self._start())
+        if self._starting is not None:
+            await asyncio.wait_for(asyncio.shield(self._starting), timeout)
+            with contextlib.suppress(TimeoutError):
+                await asyncio.wait_for(self._ready.wait(), timeout)
+        return self.running
 
     async def log(self, rows: ScoreRows, fallback: _Fallback) -> None:
-        """Log ``rows`` through the child; returns once they are committed (or raises).
-
-        ``fallback`` (the writer thread's ``submit_async``) logs rows the child hands back.
-        """
-        if self._writer is None:
-            async with self._starting:
-                if self._writer is None and not self._stopped:
-                    try:
-                        await self._start()
-                    except OSError:  # no child (e.g. out of processes): the thread logs
-                        self._stopped = True
-        if self._stopped:  # it failed to start, or exited meanwhile
+        """Log ``rows`` (that :meth:`takes`) through the child; returns once they are
+        committed, or raises. ``fallback`` (the writer thread's ``submit_async``) logs rows
+        the child hands back, and any that come after it stopped."""
+        if self._stopped:
             await fallback(rows)
             return
         await self._submit(rows, fallback)
 
     async def _start(self) -> None:
         self._loop = asyncio.get_running_loop()
-        process = subprocess.Popen(self._argv, stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+        try:
+            process = subprocess.Popen(self._argv, stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+        except OSError:  # no child (e.g. out of processes): the writer thread logs
+            self._stopped = True
+            return
         self._process = process
         assert process.stdin is not None and process.stdout is not None
-        await self._loop.connect_read_pipe(lambda: _Answers(self), process.stdout)
-        writer, _ = await self._loop.connect_write_pipe(asyncio.Protocol, process.stdin)
-        self._writer = writer  # last: requests wait on the lock until both pipes are up
+        try:
+            await self._loop.connect_read_pipe(lambda: _Answers(self), process.stdout)
+            self._writer, _ = await self._loop.connect_write_pipe(asyncio.Protocol, process.stdin)
+        except Exception:  # the loop refused the pipes: no child, the writer thread logs
+            self._stopped = True
+            process.kill()
+            raise
 
     def _submit(self, rows: ScoreRows, fallback: _Fallback) -> asyncio.Future[None]:
         assert self._loop is not None and self._writer is not None
@@ -133,6 +152,8 @@ class ScoreLogChannel:
     async def close(self, timeout: float = 30.0) -> None:
         """Let the child finish what it was sent, then wait for it to exit."""
         self._stopped = True
+        if self._starting is not None:
+            await self._starting  # the pipes are connected (or there is no child)
         process = self._process
         if process is None:
             return
@@ -152,6 +173,7 @@ class ScoreLogChannel:
             return False
 
     def _answered(self, answers: list[list[Any]]) -> None:
+        self._ready.set()  # the first line, empty, says the child is connected
         for seq, code, value in answers:
             future, rows, fallback = self._pending.pop(seq)
             if future.cancelled():

@@ -12,7 +12,8 @@ request's :data:`~models_store.score_append.FreshRows` as arrays). Lines out: an
 of ``[seq, code, value]``: code 0 stored; 1 refused, the champion changed (value
 ``[model_id, champion or null]``); 2 not stored, the store failed (value: the driver's
 message); 3 not stored, the server must take its session path (a foreign key, an unexpected
-error; value: the message). End of input: finish what was read, close, exit 0.
+error; value: the message). The first line, ``[]``, says the child is connected to the
+store. End of input: finish what was read, close, exit 0.
 """
 
 from __future__ import annotations
@@ -101,6 +102,7 @@ def main(argv: list[str]) -> int:
     conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
     try:
         apply_sqlite_pragmas(conn, busy_ms, synchronous)
+        os.write(sys.stdout.fileno(), b"[]\n")  # ready: an answer line with no answers
         serve(conn, sys.stdin.fileno(), sys.stdout.fileno())
     finally:
         conn.close()

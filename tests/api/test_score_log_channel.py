@@ -47,13 +47,16 @@ def test_the_app_logs_small_requests_through_the_child(api: ApiClient) -> None:
     two_versions_on_sqlite(api)
     channel = api.app.state.score_channel
     assert channel is not None and not channel.running  # started by the first score only
-    r = api.post(SCORES, json={"records": NEW_RECORDS[:2]})
+    r = api.post(SCORES, json={"records": NEW_RECORDS[:2]})  # the thread logs while it starts
     assert r.status_code == 200, r.text
-    assert channel.running and score_count(api) == 2
+    assert api._run(channel.started()) and score_count(api) == 2
+    sent = channel._seq
+    assert api.post(SCORES, json={"records": NEW_RECORDS[:1]}).status_code == 200
+    assert channel._seq == sent + 1 and score_count(api) == 3  # through the child
     keyed = [{**NEW_RECORDS[0], "key": "k-1"}]  # keys take the writer thread's session path
     assert api.post(SCORES, json={"records": keyed}).status_code == 200
     assert api.post(SCORES, json={"records": keyed}).status_code == 409
-    assert score_count(api) == 3
+    assert channel._seq == sent + 1 and score_count(api) == 4
 
 
 def test_refused_claims_and_rows_by_number(api: ApiClient) -> None:
@@ -61,6 +64,7 @@ def test_refused_claims_and_rows_by_number(api: ApiClient) -> None:
     channel = _channel(api)
 
     async def run() -> list[Any]:
+        assert await channel.started()
         jobs = [
             channel.log(score_rows(model, 1, 3), _never),
             channel.log(score_rows(model, 2, 2), _never),  # claims version 2: not the champion
@@ -83,7 +87,8 @@ def test_a_locked_store_refuses_the_request_then_recovers(api: ApiClient) -> Non
     holder = sqlite3.connect(api.app.state.engine.url.database, isolation_level=None)
 
     async def run() -> None:
-        await channel.log(score_rows(model, 1), _never)  # the child is up
+        assert await channel.started()
+        await channel.log(score_rows(model, 1), _never)
         holder.execute("BEGIN IMMEDIATE")  # another writer holds the lock past the timeout
         with pytest.raises(StoreError, match=r"locked|busy"):
             await channel.log(score_rows(model, 1, 3), _never)
@@ -107,6 +112,7 @@ def test_rows_the_child_cannot_place_go_to_the_thread(api: ApiClient) -> None:
         handed.append(rows)
 
     async def run() -> None:
+        assert await channel.started()
         await channel.log(score_rows(model, 9, claims=False), fallback)  # no version 9
         await channel.log(score_rows(model, 1), _never)
         await channel.close()
@@ -120,6 +126,7 @@ def test_after_the_child_dies_the_thread_logs(api: ApiClient) -> None:
     two_versions_on_sqlite(api)
     channel = api.app.state.score_channel
     assert api.post(SCORES, json={"records": NEW_RECORDS[:1]}).status_code == 200
+    assert api._run(channel.started())
     os.kill(channel._process.pid, signal.SIGKILL)
     deadline = time.monotonic() + 10
     while channel.running and time.monotonic() < deadline:
@@ -135,7 +142,8 @@ def test_close_commits_what_was_sent(api: ApiClient) -> None:
     channel = _channel(api)
 
     async def run() -> int | None:
-        await channel.log(score_rows(model, 1), _never)  # the child is up
+        assert await channel.started()
+        await channel.log(score_rows(model, 1), _never)
         futures = [
             asyncio.ensure_future(channel.log(score_rows(model, 1), _never)) for _ in range(50)
         ]
