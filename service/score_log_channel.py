@@ -153,7 +153,8 @@ class ScoreLogChannel:
         """Let the child finish what it was sent, then wait for it to exit."""
         self._stopped = True
         if self._starting is not None:
-            await self._starting  # the pipes are connected (or there is no child)
+            with contextlib.suppress(Exception):  # a failed start left no child to wait for
+                await self._starting  # the pipes are connected (or there is no child)
         process = self._process
         if process is None:
             return

@@ -19,6 +19,7 @@ store. End of input: finish what was read, close, exit 0.
 from __future__ import annotations
 
 import os
+import signal
 import sqlite3
 import struct
 import sys
@@ -99,6 +100,10 @@ def serve(conn: sqlite3.Connection, read_fd: int, write_fd: int) -> None:
 
 def main(argv: list[str]) -> int:
     path, busy_ms, synchronous = argv[0], int(argv[1]), argv[2]
+    # Ctrl-C in a terminal and a service manager's SIGTERM reach the whole process group: the
+    # child lives exactly as long as its input, so that what its server sent is committed.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)
     conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
     try:
         apply_sqlite_pragmas(conn, busy_ms, synchronous)

@@ -170,3 +170,22 @@ def test_frames_and_groups_of_the_child() -> None:
     cut = [[seq for seq, _ in g] for g in _groups(requests)]
     assert cut == [[0, 1], [2, 3]]  # 600 + 300 rows, then 200 + 1: never over the limit
     assert all(sum(len(r) for _, r in g) <= APPEND_MAX_ROWS for g in _groups(requests))
+
+
+def test_the_child_outlives_a_terminal_interrupt(api: ApiClient) -> None:
+    """Ctrl-C and a service manager's SIGTERM reach the whole process group; the child must
+    keep going until its server closes its input (then it commits what it was sent)."""
+    model = two_versions_on_sqlite(api)
+    channel = _channel(api)
+
+    async def run() -> None:
+        assert await channel.started()
+        assert channel._process is not None
+        for sig in (signal.SIGINT, signal.SIGTERM):
+            os.kill(channel._process.pid, sig)
+        await asyncio.sleep(0.2)
+        await channel.log(score_rows(model, 1), _never)
+        await channel.close()
+
+    api._run(run())
+    assert score_count(api) == 1
