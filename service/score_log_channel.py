@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import os
 import struct
 import subprocess
 import sys
@@ -72,7 +73,7 @@ class ScoreLogChannel:
         seen: Callable[[int, int | None], None] | None = None,
     ) -> None:
         self._dialect = engine.dialect
-        database = str(engine.url.database)
+        database = os.path.abspath(str(engine.url.database))  # the same file wherever it runs
         self._argv = [sys.executable, "-m", "service.score_log_child", database]
         self._argv += [str(busy_timeout_ms), synchronous]
         self._seen = seen
