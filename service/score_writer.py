@@ -172,9 +172,10 @@ class ScoreLogWriter:
 
     def _commit(self, group: list[_Job]) -> None:
         appender = self._appender()
-        if appender is not None and appender.takes([rows for rows, _ in group]):
+        requests = [rows for rows, _ in group]
+        if appender is not None and appender.takes(requests):
             try:
-                outcome = appender.append([rows for rows, _ in group])
+                outcome = appender.append(requests)
             except StoreError as failure:  # nothing of the group was stored
                 _settle(group, dict.fromkeys(range(len(group)), failure))
                 return
