@@ -82,12 +82,26 @@ class ReliabilityGroups:
 
 
 def wilson_interval(events: FloatArray, n: FloatArray, z: float) -> tuple[FloatArray, FloatArray]:
-    """Wilson score interval for binomial proportions events/n (vectorised, n > 0)."""
+    """Wilson score interval (Wilson 1927) for proportions k/n, k = ``events`` (m,), n > 0 (m,).
+
+    Written as (Agresti & Coull, Am Stat 1998, eq. 2, rearranged)::
+
+        lower, upper = (k + z^2/2 -/+ z sqrt(k (n - k) / n + z^2/4)) / (n + z^2)
+
+    which is the textbook centre -/+ half-width with the common factor taken out. The
+    limits are then made to contain the estimate exactly: lower = 0 when k = 0, upper = 1
+    when k = n, and ``lower <= k/n <= upper`` elementwise in floating point (rounding alone
+    can otherwise put a limit a few ulps on the wrong side of the estimate at the edges).
+    Works for non-integer (weighted) k in [0, n].
+    """
     phat = events / n
-    denom = 1.0 + z * z / n
-    centre = (phat + z * z / (2 * n)) / denom
-    half = z * np.sqrt(phat * (1 - phat) / n + z * z / (4 * n * n)) / denom
-    return np.clip(centre - half, 0.0, 1.0), np.clip(centre + half, 0.0, 1.0)
+    zz = z * z
+    denom = n + zz
+    centre = events + zz / 2.0
+    half = z * np.sqrt(np.maximum(events * (n - events) / n, 0.0) + zz / 4.0)
+    lo = np.where(events <= 0.0, 0.0, np.minimum(np.clip((centre - half) / denom, 0.0, 1.0), phat))
+    hi = np.where(events >= n, 1.0, np.maximum(np.clip((centre + half) / denom, 0.0, 1.0), phat))
+    return lo, hi
 
 
 def risk_groups(

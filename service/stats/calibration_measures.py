@@ -9,7 +9,8 @@ Epidemiol 2016; Steyerberg, *Clinical Prediction Models*, 2nd ed. 2019):
 
 * O/E: O = sum w y, E = sum w p; interval from the exact Poisson (Garwood 1936) limits for
   O with E held fixed, as for a standardised ratio (Breslow & Day 1987, vol. II, ch. 2):
-  ``[chi2_{a/2}(2O) / 2, chi2_{1-a/2}(2O + 2) / 2] / E``.
+  ``[chi2_{a/2}(2O) / 2, chi2_{1-a/2}(2O + 2) / 2] / E`` (lower limit 0 when O = 0), then
+  made to contain O/E exactly in floating point.
 * calibration-in-the-large: intercept a of ``logit P(y=1) = a + logit(p)`` (offset);
   calibration slope: b of ``logit P(y=1) = a' + b logit(p)``; both by maximum likelihood
   (riskfit's own Newton-Raphson for these one- and two-parameter logistic models,
@@ -151,14 +152,15 @@ def observed_expected(
     a = 1.0 - confidence_level
     lo = float(stats.chi2.ppf(a / 2, 2 * o) / 2) if o > 0 else 0.0
     hi = float(stats.chi2.ppf(1 - a / 2, 2 * o + 2) / 2)
+    ratio = o / e
     return ObservedExpected(
         o,
         e,
         o / sw,
         e / sw,
-        o / e,
-        lo / e,
-        hi / e,
+        ratio,
+        min(lo / e, ratio),  # exactly 0 at O = 0; never above the estimate after rounding
+        max(hi / e, ratio),
         confidence_level,
         "exact Poisson (Garwood) limits for O, E fixed",
         int(yy.shape[0]),

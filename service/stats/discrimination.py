@@ -138,7 +138,8 @@ def _logit_ci(auc: float, se: float, z: float) -> tuple[float, float]:
         return auc, auc
     half = z * se / (auc * (1.0 - auc))
     centre = float(special.logit(auc))
-    return float(special.expit(centre - half)), float(special.expit(centre + half))
+    lo, hi = float(special.expit(centre - half)), float(special.expit(centre + half))
+    return min(lo, auc), max(hi, auc)  # expit(logit(auc)) may differ from auc by an ulp
 
 
 def auc_delong(

@@ -112,7 +112,10 @@ def _local_fits(
 ) -> FloatArray:
     """Local polynomial fits at evaluation points x0 (k,) with bandwidths h (k,)."""
     d = xa[None, :] - x0[:, None]  # (k, m): row = evaluation point
-    u = np.minimum(np.abs(d) / h[:, None], 1.0)
+    # h = 0 when the point's own tie run holds the span (e.g. one distinct prediction):
+    # the tied points get weight 1, every other point 0 (no 0/0)
+    h_pos = np.where(h > 0, h, np.finfo(np.float64).tiny)
+    u = np.minimum(np.abs(d) / h_pos[:, None], 1.0)
     K = wa[None, :] * (1.0 - u**3) ** 3
     m = 2 * degree + 1
     S = np.empty((x0.shape[0], m))  # S[:, k] = sum_j K_j d_j^k
