@@ -14,6 +14,12 @@ never disagrees with the numbers) and returns a :class:`matplotlib.figure.Figure
 
 Look: white ground, slate ink, one teal accent for estimates, one brick red for alerts,
 light horizontal grid only, no top/right spines; sizes in inches at 100 dpi.
+
+Robustness: every text is drawn literally (``text.parse_math`` off in :data:`STYLE`, which
+every figure is built and rendered under), so a feature name, level or model name holding
+``$...$`` or a backslash is shown as typed, never parsed as math. Error bars are drawn from
+lengths clipped at 0, and a measure reported as ``None`` (not estimable) is left out of a
+panel or shown as a dash, so any valid report body can be drawn.
 """
 
 from __future__ import annotations
@@ -46,6 +52,7 @@ STYLE: dict[RcKeyType, Any] = {
     "ytick.color": INK,
     "svg.fonttype": "none",
     "svg.hashsalt": "riskfit",
+    "text.parse_math": False,  # user text ($, backslashes) drawn as typed; see module docstring
 }
 PERCENT = FuncFormatter(lambda v, _pos: f"{100 * v:.3g}%")
 
@@ -72,6 +79,18 @@ def _grid(ax: Axes) -> None:
     ax.set_axisbelow(True)
 
 
+def _fmt(value: float | None, spec: str) -> str:
+    """``value`` formatted with ``spec``, or an en dash when the report has none (``None``)."""
+    return "–" if value is None else format(value, spec)
+
+
+def _lengths(est: float, lower: float | None, upper: float | None) -> tuple[float, float]:
+    """Error-bar lengths below and above ``est``, clipped at 0 (0 where a limit is ``None``)."""
+    below = 0.0 if lower is None else max(est - lower, 0.0)
+    above = 0.0 if upper is None else max(upper - est, 0.0)
+    return below, above
+
+
 def _message(fig: Figure, text: str) -> Figure:
     ax = fig.add_subplot()
     ax.set_axis_off()
@@ -93,17 +112,16 @@ def reliability_figure(report: dict[str, Any]) -> Figure:
         groups = report["reliability"]["groups"]
         x = [g["mean_predicted"] for g in groups]
         obs = [g["observed_rate"] for g in groups]
-        err = [
-            [o - g["ci_lower"] for o, g in zip(obs, groups, strict=True)],
-            [g["ci_upper"] - o for o, g in zip(obs, groups, strict=True)],
-        ]
+        bars = [_lengths(o, g["ci_lower"], g["ci_upper"]) for o, g in zip(obs, groups, strict=True)]
+        err = [[b[0] for b in bars], [b[1] for b in bars]]
         curve = report["flexible_curve"]
         pts = [
             (a, b)
             for a, b in zip(curve["predicted"], curve["observed"], strict=True)
             if a is not None and b is not None
         ]
-        hi = max([g["ci_upper"] for g in groups] + [g["p_max"] for g in groups]) * 1.08
+        tops = [g["ci_upper"] for g in groups if g["ci_upper"] is not None]
+        hi = max([*tops, *obs, *(g["p_max"] for g in groups)]) * 1.08
         hi = min(max(hi, 0.01), 1.0)
         top.fill_between([0, hi], [0, hi], color=BAND, linewidth=0)
         top.plot(
@@ -133,10 +151,10 @@ def reliability_figure(report: dict[str, Any]) -> Figure:
         top.legend(loc="upper left", frameon=False, fontsize=8)
         m = report["measures"]
         note = (
-            f"calibration-in-the-large {m['calibration_in_the_large']['estimate']:+.3f}\n"
-            f"calibration slope {m['calibration_slope']['estimate']:.3f}\n"
-            f"ICI {m['flexible_calibration']['ici']:.4f}   "
-            f"O/E {m['observed_expected']['ratio']:.3f}"
+            f"calibration-in-the-large {_fmt(m['calibration_in_the_large']['estimate'], '+.3f')}\n"
+            f"calibration slope {_fmt(m['calibration_slope']['estimate'], '.3f')}\n"
+            f"ICI {_fmt(m['flexible_calibration']['ici'], '.4f')}   "
+            f"O/E {_fmt(m['observed_expected']['ratio'], '.3f')}"
         )
         top.text(
             0.98,
@@ -175,11 +193,14 @@ def _interval_panel(
     ideal: float,
     marked: set[str],
 ) -> None:
-    ok = [w for w in items if w["status"] == "ok"]
+    ok = [w for w in items if w["status"] == "ok" and w[measure][value_key] is not None]
     xs = [w["index"] for w in ok]
     vals = [w[measure][value_key] for w in ok]
-    lo = [v - w[measure]["ci_lower"] for v, w in zip(vals, ok, strict=True)]
-    up = [w[measure]["ci_upper"] - v for v, w in zip(vals, ok, strict=True)]
+    bars = [
+        _lengths(v, w[measure]["ci_lower"], w[measure]["ci_upper"])
+        for v, w in zip(vals, ok, strict=True)
+    ]
+    lo, up = [b[0] for b in bars], [b[1] for b in bars]
     ax.axhspan(*band, color=BAND, linewidth=0, label="tolerance")
     ax.axhline(ideal, color=MUTED, linestyle="--", linewidth=1)
     ax.errorbar(
@@ -193,7 +214,7 @@ def _interval_panel(
         capsize=2,
         label="estimate and interval",
     )
-    hits = [(w["index"], w[measure][value_key]) for w in ok if w["start"] in marked]
+    hits = [(w["index"], v) for w, v in zip(ok, vals, strict=True) if w["start"] in marked]
     if hits:
         ax.plot(
             *zip(*hits, strict=True),
