@@ -225,6 +225,9 @@ def _interval_panel(
             label="alert",
         )
     ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+    if xs and max(xs) - min(xs) < 2:  # one or two windows: a tick at each, none between
+        ax.set_xticks(sorted(set(xs)))
+        ax.set_xlim(min(xs) - 0.5, max(xs) + 0.5)
     _grid(ax)
 
 
