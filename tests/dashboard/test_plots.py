@@ -40,7 +40,7 @@ MATH_NAMES = {
     "diameter_mm": r"diameter $\frac$ mm",
     "material": "material $_{$",
     "soil": r"soil_{grade} \frac",
-    "prior_breaks_5y": "prior $x^2$ breaks",
+    "prior_breaks_5y": "prior $x^2$ <b>breaks</b> & co",  # markup too: escaped in the SVG
 }
 MATH_LEVELS = {
     "PVC": "PVC $x^2$",
@@ -217,6 +217,8 @@ def test_math_like_names_are_drawn_as_typed(api: ApiClient) -> None:
     page = api.get("/dashboard/math-names").text
     start = page.index('id="psi-plot"')
     assert "age $x^2$" in page[start:] and r"diameter $\frac$ mm" in page[start:]
+    assert "prior $x^2$ &lt;b&gt;breaks&lt;/b&gt; &amp; co" in page[start:]
+    assert "<b>breaks" not in page  # inlined SVG: the name is text, never markup
 
 
 def test_plots_draw_report_bodies_with_rounding_and_missing_values(api: ApiClient) -> None:
