@@ -132,3 +132,13 @@ def test_report_on_tiny_and_single_group_data_keeps_every_interval_ordered() -> 
         for par in (rep.calibration_in_the_large, rep.calibration_slope):
             if np.isfinite(par.estimate) and np.isfinite(par.std_error):
                 assert par.ci_lower <= par.estimate <= par.ci_upper
+
+
+def test_one_distinct_prediction_gives_the_mean_outcome_as_curve() -> None:
+    # Loess at a single distinct x: every record is at distance 0, so the local fit is the
+    # (weighted) mean outcome and ICI = |mean(y) - p| (definition of ICI, Austin &
+    # Steyerberg 2019). Before the fix the bandwidth was 0 and the fit 0/0 (NaN).
+    y = np.r_[np.ones(9), np.zeros(141)]
+    rep = calibration_report(y, np.full(150, 0.03), min_outcomes=10, min_events=2)
+    assert rep.flexible.ici == pytest.approx(9 / 150 - 0.03, abs=1e-12)
+    assert rep.flexible.emax == pytest.approx(9 / 150 - 0.03, abs=1e-12)
