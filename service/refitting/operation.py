@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import logging
 from datetime import UTC, datetime
 from typing import Any
 
@@ -59,6 +60,8 @@ from service.schemas.refits import RefitCreate
 from service.scoring import LoadedVersion, VersionCache, resolve_version
 
 __all__ = ["request_fingerprint", "run_refit"]
+
+log = logging.getLogger("riskfit.refitting")
 
 
 def request_fingerprint(request: RefitCreate) -> str:
@@ -310,4 +313,17 @@ def run_refit(
         raise
     finally:
         session.rollback()  # before the claim's own transaction ends it (SQLite write lock)
+        _end_claim(engine, claim, error, replayed)
+
+
+def _end_claim(
+    engine: Engine, claim: RefitClaim, error: dict[str, Any] | None, replayed: bool
+) -> None:
+    """Release the lock and close the run; a failure here only logs (the lease then runs out
+    and the next refit records the run as interrupted), so it never hides the answer."""
+    try:
         end_refit_claim(engine=engine, claim=claim, error=error, discard_run=replayed)
+    except Exception:
+        log.exception(
+            "refit %s of model %s: releasing the lock failed", claim.run_id, claim.model_id
+        )
