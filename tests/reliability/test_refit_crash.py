@@ -26,6 +26,7 @@ import sys
 import threading
 import time
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
 import httpx
@@ -33,6 +34,7 @@ import pytest
 from sqlalchemy import select
 from sqlalchemy.engine import Engine
 
+from models_store.db import upgrade
 from models_store.orm import ModelVersion, RefitLock, RefitRun
 from tests.cli._refit_data import SPEC, scored_records, training_columns
 from tests.reliability._checks import store_problems, table_count
@@ -92,8 +94,13 @@ def test_kill_during_refit_frees_the_lock_within_a_lease_and_records_the_run(
     engine_for: Callable[[str], Engine],
 ) -> None:
     env = {"RISKFIT_REFIT_LOCK_LEASE_SECONDS": str(LEASE_S), "TEST_REFIT_DELAY_S": str(DELAY_S)}
-    slow = servers(database_url, name="slow", env=env, command=SLOW_SERVER)
-    other = servers(database_url, name="other", env=env)
+    t0 = time.monotonic()
+    upgrade(database_url)  # the schema first: then both servers start at once
+    with ThreadPoolExecutor(2) as pool:
+        slow_start = pool.submit(servers, database_url, name="slow", env=env, command=SLOW_SERVER)
+        other_start = pool.submit(servers, database_url, name="other", env=env)
+        slow, other = slow_start.result(), other_start.result()
+    started_s = time.monotonic() - t0
     engine = engine_for(database_url)
     with httpx.Client(base_url=other.base_url, timeout=60.0) as client:
         _setup(client)
@@ -136,7 +143,10 @@ def test_kill_during_refit_frees_the_lock_within_a_lease_and_records_the_run(
         time.sleep(0.2)
     assert done is not None and done.returncode == 0, (tries, done and done.stderr)
     freed_after = tries[-1][0]
-    print(f"\nrefit kill -9: lease {LEASE_S} s; cron tries after the kill (s, exit): {tries}")
+    print(
+        f"\nrefit kill -9: lease {LEASE_S} s; cron tries after the kill (s, exit): {tries}; "
+        f"servers ready after {started_s:.1f} s, killed at {killed_at - t0:.1f} s"
+    )
     # the lease (at most one lease after the last renewal), a renewal interval, one try of
     # the command (a Python start) and the refit itself; generous for a loaded machine
     assert freed_after <= LEASE_S + 12.0, tries
