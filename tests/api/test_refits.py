@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 import pytest
 import statsmodels.api as sm
+from sqlalchemy.exc import OperationalError
 
 from models_store._types import utcnow
 from models_store.models import require_model
@@ -27,6 +28,7 @@ from models_store.refits import (
     start_refit_run,
 )
 from service.errors import RefitInProgressError
+from service.refitting import lease as lease_module
 from service.refitting import operation
 from service.refitting.lease import LeaseKeeper
 from tests.api.conftest import ApiClient, row_count, store_dump
@@ -320,3 +322,55 @@ def test_the_heartbeat_keeps_the_lease_and_notices_a_takeover(api: ApiClient) ->
     end_refit_claim(engine=engine, claim=claim, error={"code": "test", "message": "ended"})
     runs = api.get(f"{URL}/refits").json()["items"]  # the takeover had failed it already
     assert runs[0]["status"] == "failed" and runs[0]["error"]["code"] == "refit_interrupted"
+
+
+def test_a_refit_longer_than_several_leases_keeps_its_lock_and_stores(
+    api: ApiClient, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    setup_model(api, "shift", n_new=400)
+    engine, model_id = api.app.state.engine, _model_id(api)
+    api.app.state.settings.refit_lock_lease_seconds = 1.0  # renewed every 1/3 s
+    real_decide = operation.decide
+    refused: list[str] = []
+
+    def slow_decide(*args: Any, **kwargs: Any) -> Any:
+        time.sleep(2.5)  # two and a half leases
+        try:
+            claim_refit(engine=engine, model_id=model_id, request_fingerprint="y" * 64)
+        except RefitInProgressError as exc:
+            refused.append(exc.details["lease_expires"])
+        return real_decide(*args, **kwargs)
+
+    monkeypatch.setattr(operation, "decide", slow_decide)
+    answer = refit(api, gates={"min_outcomes": 50})
+    assert len(refused) == 1  # the lease was still held, by renewals alone
+    assert answer["version_written"] and answer["challenger_version"] == 2
+    assert row_count(api, "refit_lock") == 0 and row_count(api, "model_version") == 2
+
+
+def test_failed_renewals_do_not_stop_the_heartbeat(
+    api: ApiClient, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A renewal that raises (a database busy past its timeout) is logged and retried."""
+    setup_model(api, "same", n_new=40)
+    engine, model_id = api.app.state.engine, _model_id(api)
+    claim = claim_refit(
+        engine=engine, model_id=model_id, request_fingerprint="r" * 64, lease_seconds=3.0
+    )
+    calls = {"n": 0}
+    real_renew = lease_module.renew_refit_claim
+
+    def flaky_renew(**kwargs: Any) -> bool:
+        calls["n"] += 1
+        if calls["n"] <= 2:
+            raise OperationalError("UPDATE refit_lock", {}, Exception("database is locked"))
+        return real_renew(**kwargs)
+
+    monkeypatch.setattr(lease_module, "renew_refit_claim", flaky_renew)
+    with LeaseKeeper(engine, claim, interval=0.15) as keeper:
+        deadline = time.monotonic() + 10.0
+        while keeper.renewals < 2 and time.monotonic() < deadline:
+            time.sleep(0.05)
+    assert keeper.failures == 2 and keeper.renewals >= 2 and not keeper.lost.is_set()
+    end_refit_claim(engine=engine, claim=claim, discard_run=True)
+    assert row_count(api, "refit_lock") == 0 and row_count(api, "refit_run") == 0
