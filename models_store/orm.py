@@ -10,9 +10,11 @@ Conventions
   delete, and :func:`_refuse_bulk_version_update` rejects ``update(ModelVersion)`` statements run
   through a session. A new fit, recalibration or refit is a new row with the next number.
 * Refit exclusivity: ``refit_lock`` holds at most one row per model (its primary key is the
-  model id), inserted in its own committed transaction and deleted on release; a stale row
-  (``expires_at`` in the past, e.g. after kill -9) is removed by the next acquirer. The same
-  INSERT-with-a-unique-key works identically on SQLite and PostgreSQL, across processes.
+  model id), inserted in its own committed transaction and deleted on release; its holder
+  renews ``expires_at`` (a short lease) while it works, so a stale row (``expires_at`` in the
+  past: the holder was killed or hung) is removed by the next acquirer, which fails the runs
+  left ``running`` (models_store/refits.py). The same INSERT-with-a-unique-key works
+  identically on SQLite and PostgreSQL, across processes.
 """
 
 from __future__ import annotations
@@ -354,7 +356,8 @@ class RefitRun(Base):
 
 
 class RefitLock(Base):
-    """At most one row per model while a refit runs (see module docstring)."""
+    """At most one row per model while a refit runs; ``expires_at`` is its lease, renewed by
+    the holder (see module docstring and models_store/refits.py)."""
 
     __tablename__ = "refit_lock"
 

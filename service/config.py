@@ -150,6 +150,15 @@ class Settings(BaseSettings):
         "thread; off: the writer thread logs every request (about 15% fewer single-record "
         "scores per second).",
     )
+    # --- refits (service/refitting/lease.py) ---
+    refit_lock_lease_seconds: float = Field(
+        60.0,
+        ge=1.0,
+        le=3600.0,
+        description="Lease of a model's refit lock (s), renewed every third of it while the "
+        "refit runs; a refit whose process died (kill -9, host lost) is recorded as failed and "
+        "the lock taken over by the next refit once its lease runs out.",
+    )
 
     @field_validator("database_url")
     @classmethod

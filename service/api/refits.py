@@ -45,6 +45,7 @@ async def post_refit(
             cache=request.app.state.version_cache,
             confidence_level=settings.default_confidence_level,
             key_id=who.key_id,
+            lease_seconds=settings.refit_lock_lease_seconds,
         )
 
     return await run_in_threadpool(work)

@@ -10,7 +10,9 @@ URL and key default to ``RISKFIT_URL`` and ``RISKFIT_API_KEY``. A few lines go t
 Exit codes: 0 the refit ran (promoted or not, or an identical earlier refit was answered
 again); 2 usage error; 3 the server refused (409 a refit is running, 422 not enough
 outcomes or a bad request, 4xx/5xx otherwise; its error is printed on stderr); 4 the server
-could not be reached.
+could not be reached. A refit whose server was killed mid-run holds the lock until its lease
+runs out (``lease_expires`` in the 409's details, ``RISKFIT_REFIT_LOCK_LEASE_SECONDS`` on the
+server, 60 s by default); the next run after that refits and records the killed one as failed.
 """
 
 from __future__ import annotations

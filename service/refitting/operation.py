@@ -12,16 +12,25 @@ challenger it promoted); after any other champion change the refit runs afresh.
 The run key is what ``refit_run.request_fingerprint`` holds; the answer reports the request
 and data fingerprints separately.
 
-Atomicity: every write (run, version, champion change) happens in one transaction after the
-computation; a refused or failed refit writes only a ``failed`` run row with the error (not
-for dry runs, which write nothing at all). The lock is taken before the session writes, as
-:mod:`models_store.refits` requires.
+Atomicity: the claim of the model's refit lock records the run as ``running`` (one short
+transaction, :func:`models_store.refits.claim_refit`); every other write (the run's result, the
+version, the champion change) happens in one transaction after the computation, which first
+confirms that this refit still holds the lock (a refit that lost it stores nothing: 409). A
+refused or failed refit leaves only its run, ``failed`` with the error; a replayed request
+leaves nothing (its ``running`` record is deleted); dry runs write nothing at all. The lock is
+taken before the session writes, as :mod:`models_store.refits` requires.
+
+Lease: :class:`service.refitting.lease.LeaseKeeper` renews the lock every third of its lease
+(``RISKFIT_REFIT_LOCK_LEASE_SECONDS``) while the refit runs; a refit whose process dies stops
+renewing, and the next refit, one lease later, takes the lock over and records the dead one
+as ``failed`` (``refit_interrupted``).
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
+import logging
 from datetime import UTC, datetime
 from typing import Any
 
@@ -30,18 +39,29 @@ from sqlalchemy.engine import Engine
 from sqlalchemy.orm import Session
 
 from models_store.champions import set_champion
-from models_store.orm import ModelVersion, RiskModel
-from models_store.refits import find_refit_run, finish_refit_run, refit_lock, start_refit_run
+from models_store.orm import ModelVersion, RefitRun, RiskModel
+from models_store.refits import (
+    DEFAULT_LOCK_TTL_SECONDS,
+    RefitClaim,
+    claim_refit,
+    confirm_refit_claim,
+    end_refit_claim,
+    find_refit_run,
+    finish_refit_run,
+)
 from models_store.versions import add_version, require_version
 from service.errors import InvalidInputError, RiskfitError, SpecError
 from service.fitting import reference_distributions_and_ranges
 from service.refitting.data import RefitData, load_refit_data, require_counts
 from service.refitting.decide import Decision, decide, gate_config
+from service.refitting.lease import LeaseKeeper, lost_lock_error
 from service.schemas import VersionSpec
 from service.schemas.refits import RefitCreate
 from service.scoring import LoadedVersion, VersionCache, resolve_version
 
 __all__ = ["request_fingerprint", "run_refit"]
+
+log = logging.getLogger("riskfit.refitting")
 
 
 def request_fingerprint(request: RefitCreate) -> str:
@@ -188,9 +208,13 @@ def _commit(
     run_key: str,
     evaluated: tuple[LoadedVersion, RefitData, Decision, dict[str, Any]],
     key_id: int | None,
+    claim: RefitClaim,
 ) -> dict[str, Any]:
     v, data, decision, answer = evaluated
-    run = start_refit_run(session=session, model=model, request_fingerprint=run_key, key_id=key_id)
+    if not confirm_refit_claim(session=session, claim=claim):  # first write: the lock row
+        raise lost_lock_error(claim)
+    run = session.get_one(RefitRun, claim.run_id)
+    run.request_fingerprint = run_key
     answer["refit_id"] = run.id
     if decision.challenger is None:
         answer["reasons"].append("nothing was written but this refit's record")
@@ -220,16 +244,29 @@ def _commit(
     return answer
 
 
-def _record_failure(
-    session: Session, model_id: int, run_key: str, exc: RiskfitError, key_id: int | None
-) -> None:
-    session.rollback()
-    model = session.get(RiskModel, model_id)
-    if model is None:
-        return
-    run = start_refit_run(session=session, model=model, request_fingerprint=run_key, key_id=key_id)
-    finish_refit_run(session=session, run=run, status="failed", result={"error": exc.to_dict()})
-    session.commit()
+def _locked_refit(
+    session: Session,
+    model: RiskModel,
+    request: RefitCreate,
+    cache: VersionCache,
+    confidence_level: float,
+    key_id: int | None,
+    keeper: LeaseKeeper,
+) -> tuple[dict[str, Any], bool]:
+    """The refit under the lock; returns the answer and whether it replays an earlier run."""
+    v, data = _prepare(session, model, request, cache)
+    run_key = _run_key(request_fingerprint(request), data.fingerprint)
+    earlier = find_refit_run(session=session, model=model, request_fingerprint=run_key)
+    if (
+        earlier is not None
+        and earlier.status == "succeeded"
+        and earlier.result.get("champion_after") == v.number
+    ):
+        return {**earlier.result, "replayed": True}, True
+    keeper.check()
+    evaluated = _evaluate(model, request, v, data, confidence_level)
+    keeper.check()
+    return _commit(session, model, request, run_key, evaluated, key_id, keeper.claim), False
 
 
 def run_refit(
@@ -241,36 +278,52 @@ def run_refit(
     cache: VersionCache,
     confidence_level: float,
     key_id: int | None = None,
+    lease_seconds: float = DEFAULT_LOCK_TTL_SECONDS,
 ) -> dict[str, Any]:
     """Refit ``model`` as ``request`` says; returns the JSON-ready decision (module docstring).
 
-    Raises :class:`RefitInProgressError` (409) while another refit of the model runs,
-    :class:`NotEnoughOutcomesError` (422, with counts), :class:`InvalidInputError` (422).
+    Raises :class:`RefitInProgressError` (409) while another refit of the model runs (or when
+    this one lost its lock before storing), :class:`NotEnoughOutcomesError` (422, with counts),
+    :class:`InvalidInputError` (422).
     """
     _refuse(request)
     if request.dry_run:
         v, data = _prepare(session, model, request, cache)
         return _evaluate(model, request, v, data, confidence_level)[3]
     model_id = model.id
-    session.rollback()  # end the read transaction: the lock takes its own (models_store.refits)
-    with refit_lock(engine=engine, model_id=model_id):
-        model = session.get_one(RiskModel, model_id)
-        run_key = request_fingerprint(request)
-        try:
-            v, data = _prepare(session, model, request, cache)
-            run_key = _run_key(run_key, data.fingerprint)
-            earlier = find_refit_run(session=session, model=model, request_fingerprint=run_key)
-            if (
-                earlier is not None
-                and earlier.status == "succeeded"
-                and earlier.result.get("champion_after") == v.number
-            ):
-                return {**earlier.result, "replayed": True}
-            evaluated = _evaluate(model, request, v, data, confidence_level)
-            return _commit(session, model, request, run_key, evaluated, key_id)
-        except RiskfitError as exc:
-            _record_failure(session, model_id, run_key, exc, key_id)
-            raise
-        except BaseException:
-            session.rollback()  # before the lock's own transaction releases it (SQLite)
-            raise
+    session.rollback()  # end the read transaction: the claim takes its own (models_store.refits)
+    claim = claim_refit(
+        engine=engine,
+        model_id=model_id,
+        request_fingerprint=request_fingerprint(request),
+        key_id=key_id,
+        lease_seconds=lease_seconds,
+    )
+    error: dict[str, Any] | None = None
+    replayed = False
+    try:
+        with LeaseKeeper(engine, claim) as keeper:
+            model = session.get_one(RiskModel, model_id)
+            answer, replayed = _locked_refit(
+                session, model, request, cache, confidence_level, key_id, keeper
+            )
+            return answer
+    except RiskfitError as exc:
+        error = exc.to_dict()
+        raise
+    finally:
+        session.rollback()  # before the claim's own transaction ends it (SQLite write lock)
+        _end_claim(engine, claim, error, replayed)
+
+
+def _end_claim(
+    engine: Engine, claim: RefitClaim, error: dict[str, Any] | None, replayed: bool
+) -> None:
+    """Release the lock and close the run; a failure here only logs (the lease then runs out
+    and the next refit records the run as interrupted), so it never hides the answer."""
+    try:
+        end_refit_claim(engine=engine, claim=claim, error=error, discard_run=replayed)
+    except Exception:
+        log.exception(
+            "refit %s of model %s: releasing the lock failed", claim.run_id, claim.model_id
+        )

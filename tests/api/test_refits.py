@@ -8,15 +8,29 @@ statsmodels ``GLM(family=Binomial())`` fits of the same nested models (intercept
 
 from __future__ import annotations
 
+import time
+from datetime import timedelta
 from typing import Any
 
 import numpy as np
 import pytest
 import statsmodels.api as sm
+from sqlalchemy.exc import OperationalError
 
+from models_store._types import utcnow
 from models_store.models import require_model
 from models_store.outcomes import add_outcomes
-from models_store.refits import refit_lock
+from models_store.refits import (
+    acquire_refit_lock,
+    claim_refit,
+    end_refit_claim,
+    refit_lock,
+    start_refit_run,
+)
+from service.errors import RefitInProgressError
+from service.refitting import lease as lease_module
+from service.refitting import operation
+from service.refitting.lease import LeaseKeeper
 from tests.api.conftest import ApiClient, row_count, store_dump
 from tests.cli._refit_data import SPEC, design, scored_records, training_columns
 
@@ -231,3 +245,132 @@ def test_bad_requests_name_the_field(api: ApiClient, body: dict[str, Any], field
     err = r.json()["error"]
     assert err["field"].startswith(field) and err["remedy"]
     assert store_dump(api) == before
+
+
+# --- the refit lock's lease (models_store/refits.py, service/refitting/lease.py) ----------------
+
+
+def _model_id(api: ApiClient) -> int:
+    with api.app.state.session_factory() as session:
+        return require_model(session=session, name=MODEL).id
+
+
+def test_a_refit_that_lost_its_lock_stores_nothing(
+    api: ApiClient, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Another refit takes the lock over while this one decides (as after a lease ran out
+    without renewal): the storing transaction finds its token gone and writes no version."""
+    setup_model(api, "shift", n_new=400)
+    engine, model_id = api.app.state.engine, _model_id(api)
+    real_decide = operation.decide
+
+    def decide_after_a_takeover(*args: Any, **kwargs: Any) -> Any:
+        later = utcnow() + timedelta(hours=2)  # past any lease: the lock is taken over
+        acquire_refit_lock(engine=engine, model_id=model_id, now=later)
+        return real_decide(*args, **kwargs)
+
+    monkeypatch.setattr(operation, "decide", decide_after_a_takeover)
+    r = api.post(f"{URL}/refits", json={"gates": {"min_outcomes": 50}})
+    assert r.status_code == 409, r.text
+    err = r.json()["error"]
+    assert err["code"] == "refit_in_progress" and "lost the model's refit lock" in err["message"]
+    assert row_count(api, "model_version") == 1
+    runs = api.get(f"{URL}/refits").json()["items"]
+    assert [run["status"] for run in runs] == ["failed"]  # failed by the refit that took over
+    assert runs[0]["error"]["code"] == "refit_interrupted"
+
+
+def test_an_interrupted_refit_is_listed_failed_with_its_reason(api: ApiClient) -> None:
+    """A holder that died (its lease ran out long ago) left its run ``running``: the next
+    refit takes the lock over and the list shows the dead run failed, with why."""
+    setup_model(api, "shift", n_new=400)
+    engine, model_id = api.app.state.engine, _model_id(api)
+    acquire_refit_lock(
+        engine=engine, model_id=model_id, ttl_seconds=60, now=utcnow() - timedelta(hours=2)
+    )
+    with api.app.state.session_factory() as session:
+        model = require_model(session=session, name=MODEL)
+        dead = start_refit_run(session=session, model=model, request_fingerprint="d" * 64).id
+        session.commit()
+    assert refit(api, gates={"min_outcomes": 50})["refit_id"] == dead + 1
+    listed = api.get(f"{URL}/refits")
+    assert listed.status_code == 200, listed.text
+    runs = {run["refit_id"]: run for run in listed.json()["items"]}
+    assert runs[dead]["status"] == "failed" and runs[dead + 1]["status"] == "succeeded"
+    error = runs[dead]["error"]
+    assert error["code"] == "refit_interrupted" and "stopped renewing" in error["message"]
+    one = api.get(f"{URL}/refits/{dead}")
+    assert one.status_code == 200 and one.json()["result"]["error"] == error
+
+
+def test_the_heartbeat_keeps_the_lease_and_notices_a_takeover(api: ApiClient) -> None:
+    setup_model(api, "same", n_new=40)
+    engine, model_id = api.app.state.engine, _model_id(api)
+    claim = claim_refit(
+        engine=engine, model_id=model_id, request_fingerprint="h" * 64, lease_seconds=0.6
+    )
+    with LeaseKeeper(engine, claim, interval=0.15) as keeper:
+        time.sleep(1.5)  # 2.5 leases: held only because it is renewed
+        with pytest.raises(RefitInProgressError):
+            claim_refit(engine=engine, model_id=model_id, request_fingerprint="x" * 64)
+        assert keeper.renewals >= 4 and keeper.failures == 0
+        keeper.check()  # still held
+        acquire_refit_lock(engine=engine, model_id=model_id, now=utcnow() + timedelta(hours=1))
+        assert keeper.lost.wait(5.0)
+        with pytest.raises(RefitInProgressError, match="lost the model's refit lock"):
+            keeper.check()
+    end_refit_claim(engine=engine, claim=claim, error={"code": "test", "message": "ended"})
+    runs = api.get(f"{URL}/refits").json()["items"]  # the takeover had failed it already
+    assert runs[0]["status"] == "failed" and runs[0]["error"]["code"] == "refit_interrupted"
+
+
+def test_a_refit_longer_than_several_leases_keeps_its_lock_and_stores(
+    api: ApiClient, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    setup_model(api, "shift", n_new=400)
+    engine, model_id = api.app.state.engine, _model_id(api)
+    api.app.state.settings.refit_lock_lease_seconds = 1.0  # renewed every 1/3 s
+    real_decide = operation.decide
+    refused: list[str] = []
+
+    def slow_decide(*args: Any, **kwargs: Any) -> Any:
+        time.sleep(2.5)  # two and a half leases
+        try:
+            claim_refit(engine=engine, model_id=model_id, request_fingerprint="y" * 64)
+        except RefitInProgressError as exc:
+            refused.append(exc.details["lease_expires"])
+        return real_decide(*args, **kwargs)
+
+    monkeypatch.setattr(operation, "decide", slow_decide)
+    answer = refit(api, gates={"min_outcomes": 50})
+    assert len(refused) == 1  # the lease was still held, by renewals alone
+    assert answer["version_written"] and answer["challenger_version"] == 2
+    assert row_count(api, "refit_lock") == 0 and row_count(api, "model_version") == 2
+
+
+def test_failed_renewals_do_not_stop_the_heartbeat(
+    api: ApiClient, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A renewal that raises (a database busy past its timeout) is logged and retried."""
+    setup_model(api, "same", n_new=40)
+    engine, model_id = api.app.state.engine, _model_id(api)
+    claim = claim_refit(
+        engine=engine, model_id=model_id, request_fingerprint="r" * 64, lease_seconds=3.0
+    )
+    calls = {"n": 0}
+    real_renew = lease_module.renew_refit_claim
+
+    def flaky_renew(**kwargs: Any) -> bool:
+        calls["n"] += 1
+        if calls["n"] <= 2:
+            raise OperationalError("UPDATE refit_lock", {}, Exception("database is locked"))
+        return real_renew(**kwargs)
+
+    monkeypatch.setattr(lease_module, "renew_refit_claim", flaky_renew)
+    with LeaseKeeper(engine, claim, interval=0.15) as keeper:
+        deadline = time.monotonic() + 10.0
+        while keeper.renewals < 2 and time.monotonic() < deadline:
+            time.sleep(0.05)
+    assert keeper.failures == 2 and keeper.renewals >= 2 and not keeper.lost.is_set()
+    end_refit_claim(engine=engine, claim=claim, discard_run=True)
+    assert row_count(api, "refit_lock") == 0 and row_count(api, "refit_run") == 0

@@ -4,8 +4,9 @@
   a fresh PostgreSQL database (tests/store/dbfixtures.py), once per backend; the PostgreSQL
   run skips, saying so, unless RISKFIT_TEST_POSTGRES_URL is set.
 * ``postgres_database_url`` - the PostgreSQL case alone (multi-process tests).
-* ``servers`` - ``servers(url, name=...)`` returns a started :class:`ServerProcess`
-  (``riskfit serve`` on 127.0.0.1); every one is stopped at teardown.
+* ``servers`` - ``servers(url, name=..., env=..., command=...)`` returns a started
+  :class:`ServerProcess` (``riskfit serve`` on 127.0.0.1, or ``command``); every one is
+  stopped at teardown.
 * ``engine_for`` - ``engine_for(url)`` returns a store engine disposed at teardown.
 """
 
@@ -38,9 +39,13 @@ def servers(tmp_path: Path) -> Iterator[ServerFactory]:
     started: list[ServerProcess] = []
 
     def start(
-        url: str, *, name: str = "server", env: Mapping[str, str] | None = None
+        url: str,
+        *,
+        name: str = "server",
+        env: Mapping[str, str] | None = None,
+        command: list[str] | None = None,
     ) -> ServerProcess:
-        server = ServerProcess(url, tmp_path, env=env, name=name)
+        server = ServerProcess(url, tmp_path, env=env, name=name, command=command)
         started.append(server)
         return server.start()
 

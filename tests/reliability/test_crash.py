@@ -10,6 +10,9 @@
     every acknowledged outcome is stored exactly once with the value sent, at most the one
     batch in flight is stored unacknowledged, and resending everything (idempotent) makes the
     store hold each outcome exactly once.
+
+kill -9 in the middle of a refit, and the next cron refit running within about one lease, is
+tests/reliability/test_refit_crash.py.
 """
 
 from __future__ import annotations

@@ -67,7 +67,8 @@ def test_stale_lock_is_taken_over_and_its_run_marked_failed(
     session.expire_all()
     abandoned = get_refit_run(session=session, model=model, run_id=run_id)
     assert abandoned is not None and abandoned.status == "failed"
-    assert "abandoned" in abandoned.result["error"]
+    error = abandoned.result["error"]  # a dict like every refit error (the API's schema)
+    assert error["code"] == "refit_interrupted" and "stopped renewing" in error["message"]
 
 
 def test_refit_run_lifecycle(session: Session, model: RiskModel) -> None:
