@@ -19,7 +19,8 @@ Memory estimate (bytes), :func:`fit_memory_bytes`, with ``r`` the design rows he
 (``n`` in memory, one batch when streamed, 0 when a Dask cluster holds them)::
 
     16 r p              the design (8 r p) and the temporaries building it
-  + 32 min(r, 65536) p  per 65,536-row block: weighted and sub-model copies, two lanes
+  + 16 min(r, 65536) p  per 65,536-row block: the sub-model copy of a drop-term refit or a
+                        profile limit (the passes' scaled copies are 2 MB chunks) and slack
   + 64 r                per-row vectors (eta, p, w, working arrays)
   + 160 p^2             ~8 p x p float arrays in the engine (partial X'WX of two lanes, their
                         sum, Newton state, Cholesky factor, identity, inverse, symmetrised
@@ -45,7 +46,7 @@ BLOCK_ROWS = 65_536  # service.stats.blocks.array_blocks' default block
 def fit_memory_bytes(design_rows: int, n_terms: int) -> int:
     """Estimated peak bytes of a fit holding ``design_rows`` design rows of ``n_terms``."""
     r, p = int(design_rows), int(n_terms)
-    return 16 * r * p + 32 * min(r, BLOCK_ROWS) * p + 64 * r + 160 * p * p
+    return 16 * r * p + 16 * min(r, BLOCK_ROWS) * p + 64 * r + 160 * p * p
 
 
 def _largest(groups: Mapping[str, Sequence[int]]) -> list[tuple[str, int]]:
