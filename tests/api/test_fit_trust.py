@@ -83,6 +83,26 @@ def test_overflowing_odds_ratio_answers_201_and_reads_back(api: ApiClient) -> No
     assert row_count(api, "model_version") == 1
 
 
+def test_profile_limits_of_the_same_fit_answer_and_read_back(api: ApiClient) -> None:
+    options = {"profile_intervals": True}
+    r = api.post(FIT, json={**RAW_SPEC, "options": options, "data": {"columns": _raw_unit()}})
+    assert r.status_code == 201, r.text
+    x = {t["name"]: t for t in r.json()["term_table"]["terms"]}["x"]
+    assert x["ci_lower"] < x["estimate"] < x["ci_upper"]  # profile limits bracket the MLE
+    assert x["odds_ratio"] is None and x["odds_ratio_ci_upper"] is None
+    assert api.get(f"{FIT}/1").json() == r.json()
+
+
+def test_odds_ratio_is_null_exactly_where_exp_overflows() -> None:
+    from service.stats.inference import odds_ratio
+
+    top = MAX_LOG_ODDS_RATIO
+    assert odds_ratio(top) == pytest.approx(float(np.finfo(np.float64).max), rel=1e-12)
+    assert odds_ratio(float(np.nextafter(top, np.inf))) is None
+    assert odds_ratio(float("nan")) is None and odds_ratio(float("inf")) is None
+    assert odds_ratio(-800.0) == 0.0 and odds_ratio(float("-inf")) == 0.0
+
+
 def test_a_failure_while_building_the_answer_leaves_no_version(
     api: ApiClient, monkeypatch: pytest.MonkeyPatch
 ) -> None:
