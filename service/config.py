@@ -70,6 +70,18 @@ class Settings(BaseSettings):
         10_000, ge=64, description="Longest string anywhere in a JSON body or a categorical cell."
     )
     max_json_depth: int = Field(32, ge=4, description="Deepest nesting of a JSON body.")
+    max_terms: int = Field(
+        1_000,
+        ge=2,
+        description="Most terms (design columns) a fit may expand to: levels - 1 per categorical "
+        "feature, their products for interactions; checked before any matrix is built (422).",
+    )
+    fit_memory_budget_mb: int = Field(
+        4_096,
+        ge=64,
+        description="Most memory one fit may be estimated to need, MB (design rows x terms and "
+        "terms^2 matrices, service/fit_size.py); checked before any matrix is built (422).",
+    )
 
     # --- monitoring (outcomes, calibration, drift, alerts) ---
     monitor_min_outcomes: int = Field(

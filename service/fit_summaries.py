@@ -6,7 +6,10 @@
 * :func:`reference_distributions_and_ranges`: per feature the drift baseline
   (:mod:`service.stats.psi`) and the training range (numeric: min/max; categorical: counts).
 
-Non-finite floats become ``None`` (:func:`finite`): the store refuses non-finite JSON.
+Non-finite floats become ``None`` (:func:`finite`): the store refuses non-finite JSON. In the
+term table an odds ratio (or limit) is ``None`` exactly when ``exp`` of its log-odds value
+would overflow a double (above ~709.78; :func:`service.stats.inference.odds_ratio`), and
+:func:`odds_ratio_warnings` names each such term for the version's warnings.
 """
 
 from __future__ import annotations
@@ -30,13 +33,16 @@ __all__ = [
     "finite",
     "fit_statistics_dict",
     "fit_summary",
+    "odds_ratio_warnings",
     "reference_distributions_and_ranges",
     "term_table_dict",
 ]
 
 
-def finite(value: float) -> float | None:
-    """A float for JSON, with NaN/inf as ``None`` (the store refuses non-finite JSON)."""
+def finite(value: float | None) -> float | None:
+    """A float for JSON, with NaN/inf (and None) as ``None`` (the store refuses non-finite JSON)."""
+    if value is None:
+        return None
     v = float(value)
     return v if math.isfinite(v) else None
 
@@ -142,3 +148,31 @@ def term_table_dict(table: Any, fit: LogisticFit) -> dict[str, Any]:
             {"name": r.name, **{k: finite(getattr(r, k)) for k in fields}} for r in table.rows
         ],
     }
+
+
+_OR_PARTS = (
+    ("estimate", "odds_ratio", "odds ratio"),
+    ("ci_lower", "odds_ratio_ci_lower", "lower odds-ratio limit"),
+    ("ci_upper", "odds_ratio_ci_upper", "upper odds-ratio limit"),
+)
+
+
+def odds_ratio_warnings(table: Mapping[str, Any]) -> list[str]:
+    """One warning per term whose odds ratio or limit is null while its log-odds value is not.
+
+    ``table`` is a :func:`term_table_dict`; the cause is always ``exp`` overflowing a double.
+    """
+    out = []
+    for t in table["terms"]:
+        gone = [
+            (t[lo], what) for lo, odds, what in _OR_PARTS if t[lo] is not None and t[odds] is None
+        ]
+        if gone:
+            values = ", ".join(f"{what} exp({v:.6g})" for v, what in gone)
+            out.append(
+                f"term {t['name']!r}: {values} overflows a double (log-odds above 709.78) and "
+                "is reported as null; its log-odds estimate and limits stand. A feature in raw "
+                "units with a tiny range gives such coefficients: rescale it (e.g. per 0.001 "
+                "unit) for readable odds ratios"
+            )
+    return out

@@ -1,6 +1,6 @@
 """Domain operation: fit a new version of a risk model and store it in one transaction.
 
-    spec + options + columns -> learn_encoding -> design_matrix -> fit_logistic
+    spec + options + columns -> learn_encoding -> size check -> design_matrix -> fit_logistic
     -> term_table (Wald, or profile likelihood) -> drop-term LR tests
     -> reference distributions + training ranges -> data fingerprint -> store
 
@@ -10,7 +10,10 @@ and hashlib release the GIL); their errors are raised after the fit's own. The f
 statistics (apparent AUC and Brier score: a sort of the fitted probabilities) are computed in
 another while the drop-term LR tests run.
 
-Nothing is written unless every step succeeds; the first version of a model becomes its
+The size check (:func:`service.fit_size.check_fit_size`: terms against rows, the setting
+``max_terms`` and the memory budget) runs on the encoding, before the design matrix exists.
+Nothing is written unless every step succeeds and the version's answer (the body of its GET)
+was built and validated from the flushed rows; the first version of a model becomes its
 champion with the reason ``"first version"``. The steps live in their own modules:
 request checks (:mod:`service.fit_checks`), the stored summaries (:mod:`service.fit_summaries`),
 the data fingerprint (:mod:`service.fingerprint`) and the store (:mod:`service.version_store`);
@@ -27,10 +30,12 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from models_store.orm import ModelVersion, RiskModel
+from service.config import Settings
 from service.data_io import TrainingData
 from service.errors import FitError
 from service.fingerprint import data_fingerprint, fingerprint_columns
 from service.fit_checks import check_spec, in_request_terms, needed_columns, require_converged
+from service.fit_size import check_fit_size
 from service.fit_summaries import (
     drop_term_dicts,
     finite,
@@ -39,7 +44,7 @@ from service.fit_summaries import (
     reference_distributions_and_ranges,
     term_table_dict,
 )
-from service.schemas import VersionSpec
+from service.schemas import VersionPublic, VersionSpec
 from service.stats.blocks import array_blocks
 from service.stats.columns import CodedLabels
 from service.stats.design import design_matrix, learn_encoding
@@ -90,16 +95,20 @@ def fit_version(
     spec: VersionSpec,
     data: TrainingData,
     confidence_level: float,
+    settings: Settings,
     key_id: int | None = None,
     times: StepTimes | None = None,
-) -> tuple[RiskModel, ModelVersion, bool]:
-    """Fit, check and store a new version; returns ``(model, version, is_champion)``.
+) -> tuple[RiskModel, ModelVersion, VersionPublic]:
+    """Fit, check and store a new version; returns ``(model, version, answer)``.
 
     Raises the engine's :class:`~service.errors.FitError` subclasses (separation, single
     class, rank deficiency, too few observations), :class:`NonConvergenceError` when Newton
-    stopped early, :class:`SpecError`/:class:`DataError` for bad spec or data. The session is
-    committed only after every step succeeded. ``times``, if given, gets a lap per step
-    (``encode``, ``fit``, ``inference``, ``summaries``, ``store``; :mod:`service.step_times`).
+    stopped early, :class:`SpecError`/:class:`DataError` for bad spec or data,
+    :class:`LimitExceededError` / :class:`TooFewObservationsError` for a fit too large for
+    ``settings`` (before the design matrix is built). The session is committed only after
+    every step succeeded and the answer was validated; ``answer`` is that validated body.
+    ``times``, if given, gets a lap per step (``encode``, ``fit``, ``inference``,
+    ``summaries``, ``store``, ``answer``; :mod:`service.step_times`).
     """
     started = time.perf_counter()
     times = times if times is not None else StepTimes()
@@ -108,6 +117,14 @@ def fit_version(
     features = [f.model_dump(exclude_none=True) for f in spec.features]
     columns: dict[str, np.ndarray | CodedLabels] = {**data.columns, **data.coded}  # codes if known
     encoding = learn_encoding(features, columns, interactions=spec.interactions)
+    check_fit_size(
+        settings,
+        term_groups=encoding.term_groups,
+        n_terms=len(encoding.term_names),
+        n_obs=data.n_obs,
+        design_rows=data.n_obs,
+        interactions=spec.interactions,
+    )
     X = design_matrix(encoding, columns).X
     times.lap("encode")
     data_summaries = _DATA_SUMMARIES.submit(_data_summaries, spec, data)
@@ -153,6 +170,6 @@ def fit_version(
         fingerprint=fingerprint,
         confidence_level=confidence_level,
         key_id=key_id,
+        times=times,
     )
-    times.lap("store")
     return stored

@@ -12,6 +12,9 @@ Two seams:
   listed levels (``max_features``, ``max_levels``).
 * :func:`check_training_data` bounds what a fit reads however it was sent (uploads too): rows
   (``max_fit_rows``), distinct levels of each categorical feature and their lengths.
+* :func:`service.fit_size.check_fit_size` bounds the fit itself once its encoding is known and
+  before any design matrix exists: terms (``max_terms``), terms against rows, and the
+  estimated memory (``fit_memory_budget_mb``); every fit path calls it.
 
 Large bodies are not walked in Python when nothing is over a limit: the byte scan
 :func:`service.json_scan.may_exceed` (re-exported here) says whether anything *may* be over.

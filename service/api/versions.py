@@ -5,8 +5,12 @@ The fit accepts ``application/json`` (:class:`~service.schemas.VersionCreate`) o
 a file part ``data`` (CSV with a header row, or Parquet).
 
 A successful fit answers with a ``Server-Timing`` header (W3C Server Timing: milliseconds per
-step, ``read, validate, encode, fit, inference, summaries, store, answer``; see
+step, ``read, validate, encode, fit, inference, summaries, store``; see
 :mod:`service.step_times`), for profiling from the client side; it is not part of the schema.
+
+Its answer is built and validated before the version is committed (the same
+:func:`~service.version_answer.version_answer` the GET uses), and returned as built: a stored
+version always has an answer, and a fit that answered 201 can always be read back.
 """
 
 from __future__ import annotations
@@ -20,7 +24,7 @@ from starlette.concurrency import run_in_threadpool
 from starlette.datastructures import UploadFile
 
 from models_store.champions import current_champion
-from models_store.orm import ModelVersion, RiskModel
+from models_store.orm import ModelVersion
 from models_store.versions import list_versions, require_version
 from service.api.deps import (
     ModelDep,
@@ -38,30 +42,13 @@ from service.limits import check_training_data
 from service.schemas import ErrorResponse, VersionCreate, VersionList, VersionPublic, VersionSpec
 from service.schemas.versions import _EXAMPLE_SPEC
 from service.step_times import StepTimes
+from service.version_answer import version_answer, version_public
+
+__all__ = ["router", "version_public"]
 
 router = APIRouter(prefix="/risk-models/{model}/versions", tags=["versions"])
 
 VersionNumber = Path(ge=1, le=2_147_483_647, description="Version number (1, 2, ...).")
-
-
-def version_public(model: RiskModel, v: ModelVersion, champion: int | None) -> dict[str, Any]:
-    stats = dict(v.fit_stats)
-    return {
-        "model": model.name,
-        "number": v.number,
-        "created_at": v.created_at,
-        "is_champion": v.number == champion,
-        "spec": v.spec,
-        "options": {k: val for k, val in v.options.items() if k != "warnings"},
-        "encoding": v.encoding,
-        "term_table": v.term_table,
-        "fit_statistics": stats,
-        "warnings": list(v.options.get("warnings", [])),
-        "training_ranges": v.training_ranges,
-        "data_fingerprint": v.data_fingerprint,
-        "lineage": {"parent": v.parent_number, "origin": v.origin, "details": v.origin_details},
-        "note": v.note or None,
-    }
 
 
 def _validated(schema: type[VersionSpec], raw: bytes | str) -> Any:
@@ -143,14 +130,14 @@ async def post_version(
     session: SessionDep,
     settings: SettingsDep,
     who: ModelerAccess,
-) -> dict[str, Any]:
+) -> VersionPublic:
     times = StepTimes()
     spec, raw, layout = await _parse_fit_request(request)
     times.lap("read")
     options = spec.options
     kinds = {f.name: f.kind for f in spec.features}
 
-    def work() -> dict[str, Any]:
+    def work() -> tuple[VersionPublic, float]:
         if layout == "path":
             return _fit_from_path(session, settings, model, spec, who.key_id)
         data = training_data(
@@ -164,34 +151,33 @@ async def post_version(
         check_training_data(settings, kinds, data.level_columns(), data.n_obs)
         times.lap("validate")
         level = options.confidence_level or settings.default_confidence_level
-        m, v, _ = fit_version(
+        _, v, answer = fit_version(
             session=session,
             model_name=model,
             spec=spec,
             data=data,
             confidence_level=level,
+            settings=settings,
             key_id=who.key_id,
             times=times,
         )
-        public = version_public(m, v, current_champion(session=session, model=m))
-        times.lap("answer")
-        return public
+        return answer, float(v.fit_stats.get("fit_seconds", 0.0))
 
-    answer = await run_in_threadpool(work)
+    answer, seconds = await run_in_threadpool(work)
     response.headers["Server-Timing"] = times.header()
     metrics = request.app.state.metrics
     metrics.versions_fitted.labels(model, options.method).inc()
-    metrics.fit_seconds.observe(answer["fit_statistics"].get("fit_seconds", 0.0))
-    return answer
+    metrics.fit_seconds.observe(seconds)
+    return answer  # already validated: FastAPI passes a model instance through as it is
 
 
 def _fit_from_path(
     session: Any, settings: Any, model: str, body: Any, key_id: int | None
-) -> dict[str, Any]:
+) -> tuple[VersionPublic, float]:
     """``data.path``: stream a server-side file (service/sources), or fit on Dask."""
     from service.sources.fit_path import fit_version_from_path
 
-    m, v, _ = fit_version_from_path(
+    _, v, answer = fit_version_from_path(
         session=session,
         settings=settings,
         model_name=model,
@@ -202,7 +188,7 @@ def _fit_from_path(
         scheduler=body.data.scheduler,
         key_id=key_id,
     )
-    return version_public(m, v, current_champion(session=session, model=m))
+    return answer, float(v.fit_stats.get("fit_seconds", 0.0))
 
 
 def _summary(v: ModelVersion, champion: int | None) -> dict[str, Any]:
@@ -229,6 +215,6 @@ def get_versions(model: ModelDep, session: SessionDep, _: ScorerAccess) -> dict[
 @router.get("/{number}", response_model=VersionPublic, summary="One version in full")
 def get_version(
     model: ModelDep, session: SessionDep, _: ScorerAccess, number: int = VersionNumber
-) -> dict[str, Any]:
+) -> VersionPublic:
     v = require_version(session=session, model=model, number=number)
-    return version_public(model, v, current_champion(session=session, model=model))
+    return version_answer(session, model, v)

@@ -15,10 +15,12 @@ and data fingerprints separately.
 Atomicity: the claim of the model's refit lock records the run as ``running`` (one short
 transaction, :func:`models_store.refits.claim_refit`); every other write (the run's result, the
 version, the champion change) happens in one transaction after the computation, which first
-confirms that this refit still holds the lock (a refit that lost it stores nothing: 409). A
-refused or failed refit leaves only its run, ``failed`` with the error; a replayed request
-leaves nothing (its ``running`` record is deleted); dry runs write nothing at all. The lock is
-taken before the session writes, as :mod:`models_store.refits` requires.
+confirms that this refit still holds the lock (a refit that lost it stores nothing: 409), and a
+challenger version is committed only after its answer (the body of ``GET .../versions/{n}``)
+was built and validated from the flushed rows. A refused or failed refit leaves only its run,
+``failed`` with the error; a replayed request leaves nothing (its ``running`` record is
+deleted); dry runs write nothing at all. The lock is taken before the session writes, as
+:mod:`models_store.refits` requires.
 
 Lease: :class:`service.refitting.lease.LeaseKeeper` renews the lock every third of its lease
 (``RISKFIT_REFIT_LOCK_LEASE_SECONDS``) while the refit runs; a refit whose process dies stops
@@ -51,6 +53,7 @@ from models_store.refits import (
 )
 from models_store.versions import add_version, require_version
 from service.errors import InvalidInputError, RiskfitError, SpecError
+from service.fit_summaries import odds_ratio_warnings
 from service.fitting import reference_distributions_and_ranges
 from service.refitting.data import RefitData, load_refit_data, require_counts
 from service.refitting.decide import Decision, decide, gate_config
@@ -58,6 +61,8 @@ from service.refitting.lease import LeaseKeeper, lost_lock_error
 from service.schemas import VersionSpec
 from service.schemas.refits import RefitCreate
 from service.scoring import LoadedVersion, VersionCache, resolve_version
+from service.version_answer import version_answer
+from service.version_store import json_finite, require_finite_fit
 
 __all__ = ["request_fingerprint", "run_refit"]
 
@@ -154,6 +159,8 @@ def _store_version(
         spec = {k: x for k, x in parent.spec.items() if k in VersionSpec.model_fields}
         parent_spec = VersionSpec.model_validate(spec)
         refs, ranges = reference_distributions_and_ranges(parent_spec, dev.columns)
+    require_finite_fit(c.coef, c.cov, parent.term_names)
+    table = json_finite(c.term_table)
     return add_version(
         session=session,
         model=model,
@@ -162,12 +169,15 @@ def _store_version(
         term_names=list(parent.term_names),
         coef=[float(x) for x in c.coef],
         cov=np.asarray(c.cov, dtype=float).tolist(),
-        fit_stats=c.fit_stats,
-        term_table=c.term_table,
+        fit_stats=json_finite(c.fit_stats),
+        term_table=table,
         method="mle",
-        options={**parent.options, "warnings": list(c.fit.warnings)},
-        training_ranges=ranges,
-        reference_distributions=refs,
+        options={
+            **parent.options,
+            "warnings": [*c.fit.warnings, *odds_ratio_warnings(table)],
+        },
+        training_ranges=json_finite(ranges),
+        reference_distributions=json_finite(refs),
         data_fingerprint=data.fingerprint,
         n_obs=dev.n_obs,
         n_events=float(dev.n_events),
@@ -239,6 +249,8 @@ def _commit(
                 session=session, model=model, number=version.number, reason=reason, key_id=key_id
             )
             answer.update(promoted=True, champion_after=version.number)
+        session.flush()
+        version_answer(session, model, version)  # raises (run_refit rolls back) if unreadable
     finish_refit_run(session=session, run=run, status="succeeded", result=answer)
     session.commit()
     return answer

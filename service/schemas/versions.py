@@ -157,17 +157,33 @@ class VersionCreate(VersionSpec):
     data: FitData
 
 
+_NOT_FINITE = "null where the value is not a finite number (JSON carries no inf/NaN)"
+_OVERFLOW = (
+    "null exactly when exp() of the log-odds value overflows a double (log-odds above "
+    "709.78, e.g. a raw-unit feature with a tiny range; the version's warnings name the term) "
+    "or the log-odds limit itself is null"
+)
+
+
 class TermPublic(BaseModel):
+    """One term: log-odds estimate (always finite) and what is derived from it."""
+
     name: str
-    estimate: float
-    std_error: float
-    z: float
-    p_value: float
-    ci_lower: float
-    ci_upper: float
-    odds_ratio: float
-    odds_ratio_ci_lower: float
-    odds_ratio_ci_upper: float
+    estimate: float = Field(description="Log-odds coefficient; always finite.")
+    std_error: float | None = Field(description=f"Standard error; {_NOT_FINITE}.")
+    z: float | None = Field(description=f"Wald z; {_NOT_FINITE}.")
+    p_value: float | None = Field(description=f"Two-sided Wald p-value; {_NOT_FINITE}.")
+    ci_lower: float | None = Field(
+        description="Lower log-odds limit; null when a profile limit cannot be bracketed "
+        "(-infinity) or the SE is not finite."
+    )
+    ci_upper: float | None = Field(
+        description="Upper log-odds limit; null when a profile limit cannot be bracketed "
+        "(+infinity) or the SE is not finite."
+    )
+    odds_ratio: float | None = Field(description=f"exp(estimate); {_OVERFLOW}.")
+    odds_ratio_ci_lower: float | None = Field(description=f"exp(ci_lower); {_OVERFLOW}.")
+    odds_ratio_ci_upper: float | None = Field(description=f"exp(ci_upper); {_OVERFLOW}.")
 
 
 class TermTablePublic(BaseModel):
@@ -180,9 +196,9 @@ class TermTablePublic(BaseModel):
 
 class LRTestPublic(BaseModel):
     name: str = Field(description="Feature, interaction `a:b`, or `global`.")
-    statistic: float
+    statistic: float | None = Field(description=f"LR statistic; {_NOT_FINITE}.")
     df: int
-    p_value: float
+    p_value: float | None = Field(description=f"p-value; {_NOT_FINITE}.")
 
 
 class FitStatisticsPublic(BaseModel):
@@ -191,14 +207,14 @@ class FitStatisticsPublic(BaseModel):
     sum_weights: float
     method: str
     ridge_lambda: float
-    loglik: float
-    penalized_loglik: float
-    null_loglik: float
-    deviance: float
-    null_deviance: float
-    aic: float
-    bic: float
-    mcfadden_r2: float
+    loglik: float | None = Field(description=f"Log-likelihood; {_NOT_FINITE}.")
+    penalized_loglik: float | None = Field(description=f"Penalised log-likelihood; {_NOT_FINITE}.")
+    null_loglik: float | None = Field(description=f"Intercept-only log-likelihood; {_NOT_FINITE}.")
+    deviance: float | None = Field(description=f"-2 loglik; {_NOT_FINITE}.")
+    null_deviance: float | None = Field(description=f"-2 null loglik; {_NOT_FINITE}.")
+    aic: float | None = Field(description=f"Akaike information criterion; {_NOT_FINITE}.")
+    bic: float | None = Field(description=f"Bayesian information criterion; {_NOT_FINITE}.")
+    mcfadden_r2: float | None = Field(description=f"1 - loglik / null_loglik; {_NOT_FINITE}.")
     converged: bool
     iterations: int
     stop_reason: str

@@ -1,10 +1,11 @@
 """Domain operation: fit and store a version from a server-side file, streamed or on Dask.
 
     allowed path -> streamed encoding (levels, knots, ranges, references; 2-4 passes)
+    -> size check (terms, rows, memory; before any design block is built)
     -> Newton passes (local block source, or the Dask engine) -> Wald table
     -> drop-term LR tests (constrained refits over the same passes)
     -> apparent Brier (and AUC up to AUC_MAX_ROWS rows) -> fingerprint (one projected pass
-    per column, same bytes as an upload) -> store_version
+    per column, same bytes as an upload) -> store_version (commits only with a validated answer)
 
 The stored version is the one an upload of the same rows gives (same encoding, references,
 ranges, fingerprint; coefficients and covariance equal to 1e-10).
@@ -22,6 +23,7 @@ from sqlalchemy.orm import Session
 from models_store.orm import ModelVersion, RiskModel
 from service.config import Settings
 from service.errors import PermissionDeniedError, SpecError
+from service.fit_size import check_fit_size
 from service.fitting import (
     check_spec,
     fingerprint_columns,
@@ -31,7 +33,7 @@ from service.fitting import (
     store_version,
     term_table_dict,
 )
-from service.schemas import VersionSpec
+from service.schemas import VersionPublic, VersionSpec
 from service.stats.blocks import BlockSource
 from service.stats.fit import LogisticFit, fit_logistic_blocks
 from service.stats.inference import drop_term_tests, profile_intervals, term_table
@@ -132,8 +134,11 @@ def fit_version_from_path(
     scheduler: str | None = None,
     key_id: int | None = None,
     batch_rows: int = BATCH_ROWS,
-) -> tuple[RiskModel, ModelVersion, bool]:
-    """Fit ``spec`` on the file(s) at ``path`` and store the version (see module docstring)."""
+) -> tuple[RiskModel, ModelVersion, VersionPublic]:
+    """Fit ``spec`` on the file(s) at ``path`` and store the version (see module docstring).
+
+    Returns ``(model, version, answer)``, the answer validated before the commit.
+    """
     started = time.perf_counter()
     check_spec(spec)
     options = spec.options
@@ -157,6 +162,15 @@ def fit_version_from_path(
         max_levels=settings.max_levels,
     )
     enc = se.encoding
+    check_fit_size(
+        settings,
+        term_groups=enc.term_groups,
+        n_terms=len(enc.term_names),
+        n_obs=se.n_obs,
+        # Dask: the workers hold the design; locally one batch at a time (two lanes)
+        design_rows=0 if engine == "dask" else min(se.n_obs, 2 * batch_rows),
+        interactions=spec.interactions,
+    )
     blocks = file_blocks(resolved, enc, spec.outcome, options.weights, options.offset, batch_rows)
     kw: dict[str, Any] = {
         "n_terms": len(enc.term_names),

@@ -1,7 +1,10 @@
 """Inference for a fitted logistic model: Wald and profile-likelihood intervals, LR tests.
 
 * Wald: ``z = b / se``, two-sided ``p = 2 (1 - Phi(|z|))``, interval ``b -/+ z_{1-a/2} se``;
-  odds ratio ``exp(b)`` with interval ``exp`` of the limits (common practice).
+  odds ratio ``exp(b)`` with interval ``exp`` of the limits (common practice). An odds ratio
+  or limit is ``None`` exactly when ``exp`` would overflow a double (log-odds value above
+  :data:`MAX_LOG_ODDS_RATIO` = ``log(DBL_MAX)`` ~ 709.78, or a profile limit of ``+inf``);
+  the log-odds estimate and its Wald limits stay finite whenever the SE is.
 * Profile likelihood (Venzon & Moolgavkar 1988, *Applied Statistics* 37:87-94): the
   limits for ``b_j`` solve ``2 (l(b_hat) - l_p(c)) = chi2_{1, level}``, where
   ``l_p(c)`` is the (penalised) log-likelihood maximised over the other coefficients
@@ -31,6 +34,7 @@ from .metrics import auc, brier
 from .predict import z_value
 
 __all__ = [
+    "MAX_LOG_ODDS_RATIO",
     "FitStatistics",
     "LRTest",
     "TermRow",
@@ -38,13 +42,31 @@ __all__ = [
     "drop_term_tests",
     "fit_statistics",
     "global_lr_test",
+    "odds_ratio",
     "profile_intervals",
     "term_table",
 ]
 
 
+MAX_LOG_ODDS_RATIO = float(np.log(np.finfo(np.float64).max))  # ~709.78: exp() above overflows
+
+
+def odds_ratio(log_odds: float) -> float | None:
+    """``exp(log_odds)``, or ``None`` when it would overflow a double (or is NaN).
+
+    ``exp(-inf) = 0`` and the underflow of very negative values to ``0.0`` are kept: zero is
+    a finite, correctly rounded odds ratio there.
+    """
+    v = float(log_odds)
+    if not v <= MAX_LOG_ODDS_RATIO:  # NaN and +inf included
+        return None
+    return float(np.exp(v))
+
+
 @dataclass(frozen=True)
 class TermRow:
+    """One term; the odds-ratio fields are ``None`` where ``exp`` overflows (see module)."""
+
     name: str
     estimate: float
     std_error: float
@@ -52,9 +74,9 @@ class TermRow:
     p_value: float
     ci_lower: float
     ci_upper: float
-    odds_ratio: float
-    odds_ratio_ci_lower: float
-    odds_ratio_ci_upper: float
+    odds_ratio: float | None
+    odds_ratio_ci_lower: float | None
+    odds_ratio_ci_upper: float | None
 
 
 @dataclass(frozen=True)
@@ -67,10 +89,7 @@ class TermTable:
 def _row(name: str, b: float, se: float, lo: float, hi: float) -> TermRow:
     z = b / se if se > 0 else float("nan")
     p = float(2.0 * norm.sf(abs(z))) if np.isfinite(z) else float("nan")
-    with np.errstate(over="ignore"):
-        return TermRow(
-            name, b, se, z, p, lo, hi, float(np.exp(b)), float(np.exp(lo)), float(np.exp(hi))
-        )
+    return TermRow(name, b, se, z, p, lo, hi, odds_ratio(b), odds_ratio(lo), odds_ratio(hi))
 
 
 def term_table(fit: LogisticFit, confidence_level: float = 0.95) -> TermTable:

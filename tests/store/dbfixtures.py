@@ -10,6 +10,7 @@
 from __future__ import annotations
 
 import contextlib
+import math
 import uuid
 from collections.abc import Iterator
 from pathlib import Path
@@ -47,6 +48,54 @@ def fresh_postgres_url(base_url: str) -> Iterator[str]:
         admin.dispose()
 
 
+def _term(name: str, b: float, se: float) -> dict[str, Any]:
+    lo, hi = b - 1.959964 * se, b + 1.959964 * se
+    z = b / se
+    return {
+        "name": name,
+        "estimate": b,
+        "std_error": se,
+        "z": z,
+        "p_value": math.erfc(abs(z) / math.sqrt(2.0)),
+        "ci_lower": lo,
+        "ci_upper": hi,
+        "odds_ratio": math.exp(b),
+        "odds_ratio_ci_lower": math.exp(lo),
+        "odds_ratio_ci_upper": math.exp(hi),
+    }
+
+
+# A stored version must read back through GET .../versions/{n} (tests/conftest.py checks every
+# version a test commits), so the store-level version is a complete one.
+_TERM_TABLE: dict[str, Any] = {
+    "confidence_level": 0.95,
+    "ci_method": "wald",
+    "n_obs": 400,
+    "n_events": 22.0,
+    "terms": [_term("intercept", -3.0, 0.2), _term("age", 0.02, 0.00316)],
+}
+_FIT_STATS: dict[str, Any] = {
+    "n_obs": 400,
+    "n_events": 22.0,
+    "sum_weights": 400.0,
+    "method": "mle",
+    "ridge_lambda": 0.0,
+    "loglik": -120.5,
+    "penalized_loglik": -120.5,
+    "null_loglik": -130.0,
+    "deviance": 241.0,
+    "null_deviance": 260.0,
+    "aic": 245.0,
+    "bic": 253.0,
+    "mcfadden_r2": 1 - 120.5 / 130.0,
+    "converged": True,
+    "iterations": 6,
+    "stop_reason": "converged",
+    "global_lr_test": {"name": "global", "statistic": 19.0, "df": 1, "p_value": 1.3e-5},
+    "drop_term_tests": [{"name": "age", "statistic": 19.0, "df": 1, "p_value": 1.3e-5}],
+}
+
+
 def version_fields(**overrides: Any) -> dict[str, Any]:
     """Column values of a small valid version (intercept + one slope), for store-level tests."""
     fields: dict[str, Any] = {
@@ -55,8 +104,8 @@ def version_fields(**overrides: Any) -> dict[str, Any]:
         "term_names": ["intercept", "age"],
         "coef": [-3.0, 0.02],
         "cov": [[0.04, -0.0005], [-0.0005, 0.00001]],
-        "fit_stats": {"loglik": -120.5, "n_obs": 400},
-        "term_table": {"rows": [], "confidence_level": 0.95, "ci_method": "wald"},
+        "fit_stats": _FIT_STATS,
+        "term_table": _TERM_TABLE,
         "method": "mle",
         "options": {"confidence_level": 0.95},
         "training_ranges": {"age": [1.0, 90.0]},
