@@ -70,6 +70,16 @@ class Settings(BaseSettings):
         10_000, ge=64, description="Longest string anywhere in a JSON body or a categorical cell."
     )
     max_json_depth: int = Field(32, ge=4, description="Deepest nesting of a JSON body.")
+    max_decoded_mb: int = Field(
+        1024,
+        ge=1,
+        description="Most memory (MB) the columns a fit reads may decode to: an upload whole, "
+        "a server-side Parquet file per row group; judged from the file's footer before "
+        "decoding, and again while reading (422).",
+    )
+    max_file_columns: int = Field(
+        10_000, ge=1, description="Most columns in an uploaded or server-side data file (422)."
+    )
 
     # --- monitoring (outcomes, calibration, drift, alerts) ---
     monitor_min_outcomes: int = Field(
