@@ -139,6 +139,11 @@ def _float_or_inf(value: Any) -> float:
         return math.inf
 
 
+def _clip(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 80 else text[:80] + "..."
+
+
 def _raise_first_non_number(name: str, seq: Sequence[Any] | np.ndarray, where: FieldNamer) -> None:
     for i, v in enumerate(seq):
         if v is None:
@@ -150,7 +155,7 @@ def _raise_first_non_number(name: str, seq: Sequence[Any] | np.ndarray, where: F
             )
         if isinstance(v, bool) or not isinstance(v, int | float | np.integer | np.floating):
             raise DataError(
-                f"numeric feature {name} must hold numbers, got {type(v).__name__} {v!r}",
+                f"numeric feature {name} must hold numbers, got {type(v).__name__} {_clip(v)}",
                 field=where(i),
                 value=v,
                 remedy=f"send {name} as a JSON number, or declare it kind='categorical'",
