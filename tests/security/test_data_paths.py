@@ -189,3 +189,25 @@ def test_errors_show_paths_relative_to_the_allowed_directory(
     pq.write_table(pa.table(cols), bad / "cols.parquet")
     r = _fit(api, str(bad / "cols.parquet"))
     assert r.status_code == 422 and SECRET not in r.text and str(allowed) not in r.text
+
+
+def test_nfc_and_nfd_spellings_in_server_files_are_one_level(api: ApiClient, allowed: Path) -> None:
+    """Unicode canonical equivalence (UAX #15): 'b\\u00e9ton' and 'be\\u0301ton' are one level,
+    stored in NFC, as in the JSON fit of the NFC data."""
+    cols = segments(900, seed=33)
+    nfc = [("b\u00e9ton" if m == "ductile iron" else m) for m in cols["material"]]
+    mixed = [("be\u0301ton" if i % 2 else m) if m == "b\u00e9ton" else m for i, m in enumerate(nfc)]
+    base = api.post(
+        "/risk-models/nfc/versions", json={**SPEC, "data": {"columns": {**cols, "material": nfc}}}
+    )
+    assert base.status_code == 201, base.text
+    d = allowed / "unicode"
+    d.mkdir()
+    pq.write_table(pa.table({**cols, "material": mixed}), d / "mixed.parquet", row_group_size=200)
+    pa_csv.write_csv(pa.table({**cols, "material": mixed}), d / "mixed.csv")
+    for name in ("mixed.parquet", "mixed.csv"):
+        r = _fit(api, str(d / name), model=name.replace(".", "-"))
+        assert r.status_code == 201, r.text
+        assert r.json()["encoding"] == base.json()["encoding"], name
+        assert r.json()["data_fingerprint"] == base.json()["data_fingerprint"], name
+        assert r.json()["training_ranges"] == base.json()["training_ranges"], name
