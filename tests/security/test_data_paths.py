@@ -211,3 +211,48 @@ def test_nfc_and_nfd_spellings_in_server_files_are_one_level(api: ApiClient, all
         assert r.json()["encoding"] == base.json()["encoding"], name
         assert r.json()["data_fingerprint"] == base.json()["data_fingerprint"], name
         assert r.json()["training_ranges"] == base.json()["training_ranges"], name
+
+
+def test_a_server_parquet_row_group_over_the_budget_is_refused_from_its_footer(
+    tmp_path: Path, allowed: Path
+) -> None:
+    """One row group of 100,000 rows x 6 columns decodes to ~4.5 MB (a pass decodes a row
+    group at a time); with max_decoded_mb=1 it is refused before any page is read."""
+    cols = segments(1000, seed=34)
+    big = pa.concat_tables([pa.table(cols)] * 100)
+    d = allowed / "big"
+    d.mkdir()
+    pq.write_table(big, d / "one-group.parquet", row_group_size=len(big), compression="zstd")
+    settings = Settings(
+        database_url=sqlite_url(tmp_path),
+        auth_required=False,
+        fit_data_dirs=[str(allowed)],
+        max_decoded_mb=1,
+    )
+    client = ApiClient(create_app(settings))
+    try:
+        before = store_dump(client)
+        r = _fit(client, str(d))
+        assert r.status_code == 422, r.text[:500]
+        err = r.json()["error"]
+        assert err["details"] == {"limit": 1, "setting": "max_decoded_mb"}
+        assert "row group" in err["message"] and "RISKFIT_MAX_DECODED_MB" in err["remedy"]
+        assert store_dump(client) == before
+        # the same rows in row groups of 5,000 (~0.25 MB decoded each) are read
+        pq.write_table(big, d / "one-group.parquet", row_group_size=5_000)
+        r = _fit(client, str(d / "one-group.parquet"), model="small-groups")
+        assert r.status_code == 201, r.text[:500]
+    finally:
+        client.close()
+
+
+def test_dask_partitions_are_the_checked_files(allowed: Path, outside: dict[str, Path]) -> None:
+    from service.distributed import file_partitions
+    from service.errors import PermissionDeniedError
+
+    parts = file_partitions(str(allowed / "parts"), {}, "outcome")
+    found = sorted(Path(p.path).name for p in parts)
+    assert found == ["one.parquet", "two.parquet"]  # nested files too, nothing else
+    os.symlink(outside["parquet"], allowed / "parts" / "a" / "b" / "zz.parquet")
+    with pytest.raises(PermissionDeniedError):
+        file_partitions(str(allowed / "parts"), {}, "outcome")
