@@ -10,7 +10,8 @@ length once, not once per row).
 
 CSV: the header row is parsed first (at most :data:`HEADER_BYTES` bytes; columns at most
 ``max_columns``); rows are bounded before parsing by the number of line breaks (an upper
-bound: a quoted line break counts too) and the decoded size by ``rows * width`` over the
+bound: a quoted line break counts too; counted only when the file's size divided by its
+columns, a bound too, is not small enough) and the decoded size by ``rows * width`` over the
 columns read plus the file's size (text decodes to at most its bytes); only the named
 columns are converted (``include_columns``). Text columns of up to
 :data:`CSV_DICTIONARY_LEVELS` distinct values come as dictionary arrays
@@ -116,7 +117,8 @@ def _is_text(typ: pa.DataType) -> bool:
 
 
 def _csv_header(content: bytes, limits: ReadLimits) -> list[str]:
-    end = content.find(b"\n", 0, HEADER_BYTES)
+    ends = [i for i in (content.find(b"\n", 0, HEADER_BYTES), content.find(b"\r", 0, HEADER_BYTES))]
+    end = min((i for i in ends if i >= 0), default=-1)
     if end < 0:
         if len(content) > HEADER_BYTES:
             raise DataError(
@@ -126,7 +128,7 @@ def _csv_header(content: bytes, limits: ReadLimits) -> list[str]:
                 remedy=_REMEDY,
             )
         end = len(content)
-    line = content[:end].decode("utf-8-sig", errors="replace").rstrip("\r")
+    line = content[:end].decode("utf-8-sig", errors="replace")
     header = next(csv.reader([line]), [])
     if len(header) > limits.max_columns:
         raise too_big(
@@ -139,6 +141,11 @@ def _csv_header(content: bytes, limits: ReadLimits) -> list[str]:
     return header
 
 
+def _line_breaks(content: bytes) -> int:
+    """Line breaks: LF, CR LF or a lone CR (pyarrow's CSV reader accepts all three)."""
+    return content.count(b"\n") + content.count(b"\r") - content.count(b"\r\n")
+
+
 def _csv(
     content: bytes,
     columns: Sequence[str] | None,
@@ -149,7 +156,11 @@ def _csv(
     wanted = list(header) if columns is None else list(dict.fromkeys(columns))
     missing = [n for n in wanted if n not in header]
     wanted = [n for n in wanted if n in header] or header[:1]  # a malformed file says so first
-    rows = content.count(b"\n") + (0 if content.endswith(b"\n") else 1) - 1
+    cats = set(categorical)
+    width = sum(4 if n in cats else 8 for n in wanted)
+    rows = len(content) // max(len(header), 1)  # a row holds a byte per field at least
+    if rows > limits.max_rows or rows * width + len(content) > limits.max_decoded_bytes:
+        rows = _line_breaks(content) + (0 if content.endswith((b"\n", b"\r")) else 1) - 1
     if rows > limits.max_rows:
         raise too_big(
             "rows (line breaks after the header)",
@@ -158,8 +169,6 @@ def _csv(
             "max_fit_rows",
             "fit on a sample, or split the data by period",
         )
-    cats = set(categorical)
-    width = sum(4 if n in cats else 8 for n in wanted)
     check_decoded(rows * width + len(content), limits)  # text decodes to at most its bytes
     convert = pa_csv.ConvertOptions(
         include_columns=wanted if columns is not None else None,
@@ -197,5 +206,5 @@ def read_table(
         if is_parquet:
             return _parquet(content, columns, limits, filename or "the upload")
         return _csv(content, columns, categorical, limits)
-    except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowKeyError, OSError, ValueError) as exc:
+    except (pa.ArrowInvalid, pa.ArrowTypeError, OSError, ValueError, csv.Error) as exc:
         raise _unreadable("Parquet" if is_parquet else "CSV", exc, value) from exc
