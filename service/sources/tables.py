@@ -38,6 +38,7 @@ from service.errors import DataError, MissingFeatureError
 
 from .file_limits import ReadLimits, check_parquet
 from .paths import DataFiles, files_under
+from .upload_read import HEADER_BYTES, csv_header
 
 __all__ = ["BATCH_ROWS", "Chunk", "TableSpec", "check_files", "chunks"]
 
@@ -148,9 +149,14 @@ def _check_columns(dataset: ds.Dataset, spec: TableSpec) -> None:
 
 
 def check_files(spec: TableSpec, limits: ReadLimits) -> None:
-    """Refuse, from their footers, Parquet files whose row groups decode over the budget."""
+    """Refuse, before reading them, files over the limits: a Parquet file whose row groups
+    decode over the budget or that has too many columns (its footer), a CSV file whose header
+    row has too many columns."""
     files = spec.data
     if _is_csv(files):
+        for path in files.files:
+            with open(path, "rb") as f:
+                csv_header(f.read(HEADER_BYTES), limits)
         return
     for path, name in zip(files.files, files.names, strict=True):
         try:

@@ -36,7 +36,7 @@ from service.errors import DataError, MissingFeatureError
 
 from .file_limits import ReadLimits, check_decoded, check_parquet, footer_bytes, too_big
 
-__all__ = ["CSV_DICTIONARY_LEVELS", "HEADER_BYTES", "read_table"]
+__all__ = ["CSV_DICTIONARY_LEVELS", "HEADER_BYTES", "csv_header", "read_table"]
 
 CSV_DICTIONARY_LEVELS = 1000  # a CSV text column with more distinct values is read as plain text
 HEADER_BYTES = 4 * 2**20  # the longest CSV header row read
@@ -116,13 +116,14 @@ def _is_text(typ: pa.DataType) -> bool:
     )
 
 
-def _csv_header(content: bytes, limits: ReadLimits) -> list[str]:
+def csv_header(content: bytes, limits: ReadLimits) -> list[str]:
+    """The header row's names (its first :data:`HEADER_BYTES` bytes), at most ``max_columns``."""
     ends = [i for i in (content.find(b"\n", 0, HEADER_BYTES), content.find(b"\r", 0, HEADER_BYTES))]
     end = min((i for i in ends if i >= 0), default=-1)
     if end < 0:
         if len(content) > HEADER_BYTES:
             raise DataError(
-                f"the uploaded CSV file has no header row within its first {HEADER_BYTES} bytes",
+                f"the CSV file has no header row within its first {HEADER_BYTES} bytes",
                 field="data",
                 value=len(content),
                 remedy=_REMEDY,
@@ -152,7 +153,7 @@ def _csv(
     categorical: Sequence[str],
     limits: ReadLimits,
 ) -> pa.Table:
-    header = _csv_header(content, limits)
+    header = csv_header(content, limits)
     wanted = list(header) if columns is None else list(dict.fromkeys(columns))
     missing = [n for n in wanted if n not in header]
     wanted = [n for n in wanted if n in header] or header[:1]  # a malformed file says so first

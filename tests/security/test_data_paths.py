@@ -256,3 +256,24 @@ def test_dask_partitions_are_the_checked_files(allowed: Path, outside: dict[str,
     os.symlink(outside["parquet"], allowed / "parts" / "a" / "b" / "zz.parquet")
     with pytest.raises(PermissionDeniedError):
         file_partitions(str(allowed / "parts"), {}, "outcome")
+
+
+def test_a_server_csv_wider_than_the_column_limit_is_refused(tmp_path: Path, allowed: Path) -> None:
+    cols = segments(300, seed=35)
+    cols.update({f"extra_{j}": [0.0] * 300 for j in range(40)})
+    pa_csv.write_csv(pa.table(cols), allowed / "csvs" / "a" / "wide.csv")
+    settings = Settings(
+        database_url=sqlite_url(tmp_path),
+        auth_required=False,
+        fit_data_dirs=[str(allowed)],
+        max_file_columns=40,
+    )
+    client = ApiClient(create_app(settings))
+    try:
+        r = _fit(client, str(allowed / "csvs"))
+        assert r.status_code == 422, r.text[:500]
+        err = r.json()["error"]
+        assert err["value"] == 46 and err["details"]["setting"] == "max_file_columns"
+        assert _fit(client, str(allowed / "csvs" / "one.csv")).status_code == 201
+    finally:
+        client.close()
