@@ -82,6 +82,16 @@ class Settings(BaseSettings):
         description="Most memory one fit may be estimated to need, MB (design rows x terms and "
         "terms^2 matrices, service/fit_size.py); checked before any matrix is built (422).",
     )
+    max_decoded_mb: int = Field(
+        1024,
+        ge=1,
+        description="Most memory (MB) the columns a fit reads may decode to: an upload whole, "
+        "a server-side Parquet file per row group; judged from the file's footer before "
+        "decoding, and again while reading (422).",
+    )
+    max_file_columns: int = Field(
+        10_000, ge=1, description="Most columns in an uploaded or server-side data file (422)."
+    )
 
     # --- monitoring (outcomes, calibration, drift, alerts) ---
     monitor_min_outcomes: int = Field(

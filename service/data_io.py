@@ -8,12 +8,20 @@ or an object array of ``str`` (``categorical``), and names the first bad cell in
 Categorical values are compared as text: ``3`` and ``3.0`` both become ``"3"``, so a level
 coded as a number in a CSV file matches the same level sent as a JSON number.
 The outcome column must hold 0 and 1 only (``true``/``false`` are accepted as 1/0).
+
+Categorical text is normalised to Unicode NFC (canonical composition, Unicode Standard
+Annex #15) wherever fit data enter (:func:`nfc_coded` for JSON, CSV and Parquet uploads,
+:func:`nfc_arrow` for server-side files): ``"caf\\u00e9"`` and ``"cafe\\u0301"`` are one
+level, stored in its NFC spelling. Only the distinct levels are normalised (Arrow's
+``utf8_normalize`` for streamed chunks), so the cost is per level, not per row.
+Uploads are read by :func:`service.sources.upload_read.read_table` (re-exported here) within
+:class:`~service.sources.file_limits.ReadLimits`.
 """
 
 from __future__ import annotations
 
-import io
 import math
+import unicodedata
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -21,27 +29,30 @@ from typing import Any
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
-import pyarrow.csv as pa_csv
-import pyarrow.parquet as pq
 
 from service.errors import DataError, MissingFeatureError
+from service.sources.file_limits import ReadLimits
+from service.sources.upload_read import CSV_DICTIONARY_LEVELS, read_table
 from service.stats.columns import CodedLabels
 
 __all__ = [
+    "CSV_DICTIONARY_LEVELS",
     "NUMERIC_KINDS",
     "FieldNamer",
+    "ReadLimits",
     "TrainingData",
     "cell_namer",
     "coerce_column",
     "coerce_outcome",
     "columns_from_rows",
+    "nfc_arrow",
+    "nfc_coded",
     "read_table",
     "table_columns",
     "training_data",
 ]
 
 NUMERIC_KINDS = frozenset({"numeric", "spline"})
-CSV_DICTIONARY_LEVELS = 1000  # a CSV text column with more distinct values is read as plain text
 FieldNamer = Callable[[int], str]
 _MISSING = object()
 
@@ -128,6 +139,11 @@ def _float_or_inf(value: Any) -> float:
         return math.inf
 
 
+def _clip(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 80 else text[:80] + "..."
+
+
 def _raise_first_non_number(name: str, seq: Sequence[Any] | np.ndarray, where: FieldNamer) -> None:
     for i, v in enumerate(seq):
         if v is None:
@@ -139,7 +155,7 @@ def _raise_first_non_number(name: str, seq: Sequence[Any] | np.ndarray, where: F
             )
         if isinstance(v, bool) or not isinstance(v, int | float | np.integer | np.floating):
             raise DataError(
-                f"numeric feature {name} must hold numbers, got {type(v).__name__} {v!r}",
+                f"numeric feature {name} must hold numbers, got {type(v).__name__} {_clip(v)}",
                 field=where(i),
                 value=v,
                 remedy=f"send {name} as a JSON number, or declare it kind='categorical'",
@@ -165,7 +181,11 @@ def _coerce_arrow(name: str, kind: str, arr: Any, where: FieldNamer) -> np.ndarr
         )
     typ = arr.type
     if pa.types.is_dictionary(typ):
-        arr, typ = arr.cast(typ.value_type), typ.value_type
+        value_type = typ.value_type
+        numeric_values = pa.types.is_integer(value_type) or pa.types.is_floating(value_type)
+        if kind in NUMERIC_KINDS and not numeric_values:  # text: the first row is not a number
+            _raise_first_non_number(name, arr.slice(0, 1).cast(value_type).to_pylist(), where)
+        arr, typ = arr.cast(value_type), value_type
     if kind in NUMERIC_KINDS:
         if not (pa.types.is_integer(typ) or pa.types.is_floating(typ)):
             values = arr.to_pylist()
@@ -217,48 +237,6 @@ def columns_from_rows(
                 )
         out[name] = col
     return out
-
-
-def read_table(
-    content: bytes,
-    *,
-    filename: str | None,
-    content_type: str | None,
-    categorical: Sequence[str] = (),
-) -> pa.Table:
-    """A CSV or Parquet upload as a pyarrow table (Parquet recognised by its ``PAR1`` magic).
-
-    Text columns come as dictionary arrays where that is cheap, so that a categorical column
-    is coded without materialising its strings: Parquet columns named in ``categorical``
-    (``read_dictionary``; other names are ignored), and CSV text columns of up to
-    :data:`CSV_DICTIONARY_LEVELS` distinct values (``auto_dict_encode``; numbers stay numbers,
-    so a level written ``3.0`` still reads as ``"3"``).
-    """
-    if not content:
-        raise DataError(
-            "the uploaded file is empty",
-            field="data",
-            value=filename or "",
-            remedy="upload a CSV file with a header row, or a Parquet file",
-        )
-    is_parquet = content[:4] == b"PAR1" or (filename or "").lower().endswith(".parquet")
-    try:
-        if is_parquet:
-            return pq.read_table(io.BytesIO(content), read_dictionary=list(categorical) or None)
-        convert = pa_csv.ConvertOptions(
-            auto_dict_encode=True, auto_dict_max_cardinality=CSV_DICTIONARY_LEVELS
-        )
-        return pa_csv.read_csv(io.BytesIO(content), convert_options=convert)
-    except (pa.ArrowInvalid, pa.ArrowTypeError, OSError, ValueError) as exc:
-        kind = "Parquet" if is_parquet else "CSV"
-        first_line = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else ""
-        raise DataError(
-            f"the uploaded file could not be read as {kind}: {first_line}",
-            field="data",
-            value=filename or content_type or "",
-            remedy="upload a UTF-8 CSV file with one header row (comma separated), "
-            "or a Parquet file",
-        ) from exc
 
 
 def table_columns(table: pa.Table, names: Sequence[str]) -> dict[str, Any]:
@@ -353,7 +331,42 @@ def training_data(
     return TrainingData(columns=columns, y=y, weights=w, offset=off, n_obs=n, coded=coded)
 
 
+def nfc_coded(coded: CodedLabels) -> CodedLabels:
+    """``coded`` with its levels in NFC; levels equal once normalised merge (codes remapped)."""
+    levels = coded.levels
+    if all(lv.isascii() or unicodedata.is_normalized("NFC", lv) for lv in levels):
+        return coded
+    index: dict[str, int] = {}
+    remap = np.empty(len(levels), dtype=np.intp)
+    for j, lv in enumerate(levels):
+        remap[j] = index.setdefault(unicodedata.normalize("NFC", lv), len(index))
+    return CodedLabels(remap[coded.codes], tuple(index))
+
+
+def nfc_arrow(values: Any) -> Any:
+    """An Arrow text column (plain or dictionary) with its text in NFC (other types as given)."""
+    if isinstance(values, pa.ChunkedArray):
+        if not any(isinstance(c, pa.DictionaryArray) or _is_text(c.type) for c in values.chunks):
+            return values
+        return pa.chunked_array([nfc_arrow(c) for c in values.chunks], type=values.type)
+    if isinstance(values, pa.DictionaryArray) and _is_text(values.dictionary.type):
+        fixed = pc.utf8_normalize(values.dictionary, "NFC")
+        return pa.DictionaryArray.from_arrays(values.indices, fixed)
+    if isinstance(values, pa.Array) and _is_text(values.type):
+        return pc.utf8_normalize(values, "NFC")
+    return values
+
+
+def _is_text(typ: pa.DataType) -> bool:
+    return bool(pa.types.is_string(typ) or pa.types.is_large_string(typ))
+
+
 def _coded_column(name: str, values: Any, where: FieldNamer) -> CodedLabels:
+    """A categorical column as NFC-normalised codes (:func:`nfc_coded`)."""
+    return nfc_coded(_coded(name, values, where))
+
+
+def _coded(name: str, values: Any, where: FieldNamer) -> CodedLabels:
     """A categorical column as codes: Arrow text by ``dictionary_encode``, else a hash pass."""
     if isinstance(values, pa.ChunkedArray | pa.Array) and not values.null_count:
         arr = values.combine_chunks() if isinstance(values, pa.ChunkedArray) else values

@@ -98,18 +98,15 @@ class FilePartition:
 
 
 def file_partitions(
-    path: str, encoding: dict[str, Any], outcome: str, **kw: Any
+    path: str | Sequence[str], encoding: dict[str, Any], outcome: str, **kw: Any
 ) -> list[FilePartition]:
-    """One partition per data file of ``path`` (a file, or the Parquet/CSV files of a dir)."""
-    from pathlib import Path
+    """One partition per data file: the files given (as checked by the caller), or those of
+    ``path`` found by :func:`service.sources.paths.files_under` (every depth, links leading
+    out of ``path``'s directory refused; the workers never list a directory themselves).
+    """
+    from service.sources.paths import files_under
 
-    p = Path(path)
-    data = (".parquet", ".csv")
-    files = (
-        sorted(str(f) for f in p.iterdir() if f.name.lower().endswith(data))
-        if p.is_dir()
-        else [str(p)]
-    )
+    files = list(files_under(path).files) if isinstance(path, str) else list(path)
     return [FilePartition(f, encoding, outcome, **kw) for f in files]
 
 

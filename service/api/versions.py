@@ -35,7 +35,13 @@ from service.api.deps import (
     SettingsDep,
 )
 from service.api.uploads import read_multipart
-from service.data_io import columns_from_rows, read_table, table_columns, training_data
+from service.data_io import (
+    ReadLimits,
+    columns_from_rows,
+    read_table,
+    table_columns,
+    training_data,
+)
 from service.errors import DataError
 from service.fitting import fit_version, needed_columns
 from service.limits import check_training_data
@@ -80,7 +86,12 @@ async def _parse_fit_request(request: Request) -> tuple[VersionSpec, dict[str, A
         spec = _validated(VersionSpec, spec_raw)
         categorical = [f.name for f in spec.features if f.kind == "categorical"]
         table = read_table(
-            content, filename=filename, content_type=upload_type, categorical=categorical
+            content,
+            filename=filename,
+            content_type=upload_type,
+            categorical=categorical,
+            columns=needed_columns(spec),  # only these are decoded, within the read limits
+            limits=ReadLimits.from_settings(request.app.state.settings),
         )
         return spec, table_columns(table, needed_columns(spec)), "columns"
     body: VersionCreate = _validated(VersionCreate, await request.body())

@@ -15,6 +15,7 @@ from collections.abc import Iterator
 from service.stats.blocks import Block, BlockSource
 from service.stats.design import Encoding, design_matrix
 
+from .paths import DataFiles
 from .tables import BATCH_ROWS, TableSpec, chunks
 
 __all__ = ["csv_blocks", "file_blocks", "parquet_blocks", "table_spec"]
@@ -26,10 +27,11 @@ def table_spec(
     outcome: str,
     weights: str | None = None,
     offset: str | None = None,
+    checked: DataFiles | None = None,
 ) -> TableSpec:
-    """The columns a fit of ``encoding`` reads from ``path``."""
+    """The columns a fit of ``encoding`` reads from ``path`` (``checked``: its files)."""
     kinds = {f.name: f.kind for f in encoding.features}
-    return TableSpec(str(path), kinds, outcome, weights, offset)
+    return TableSpec(str(path), kinds, outcome, weights, offset, checked)
 
 
 def file_blocks(
@@ -39,9 +41,14 @@ def file_blocks(
     weights: str | None = None,
     offset: str | None = None,
     batch_rows: int = BATCH_ROWS,
+    checked: DataFiles | None = None,
 ) -> BlockSource:
-    """Block source over a Parquet file or directory, or a CSV file (chosen by suffix)."""
-    spec = table_spec(path, encoding, outcome, weights, offset)
+    """Block source over a Parquet file or directory, or a CSV file (chosen by suffix).
+
+    ``checked``: the files of ``path`` as :func:`service.sources.paths.data_files` checked
+    them; without it, ``path``'s own directory is the one allowed directory.
+    """
+    spec = table_spec(path, encoding, outcome, weights, offset, checked)
 
     def source() -> Iterator[Block]:
         for c in chunks(spec, batch_rows):

@@ -41,8 +41,9 @@ from service.stats.metrics import auc
 
 from .blocks import file_blocks
 from .encoding import StreamedEncoding, learn_streamed
-from .paths import allowed_path
-from .tables import BATCH_ROWS, TableSpec, chunks
+from .file_limits import ReadLimits
+from .paths import data_files
+from .tables import BATCH_ROWS, TableSpec, check_files, chunks
 
 __all__ = ["AUC_MAX_ROWS", "fit_version_from_path"]
 
@@ -89,11 +90,13 @@ def _fingerprint(spec: TableSpec, se: StreamedEncoding, batch_rows: int) -> str:
     def column(name: str) -> Any:
         def parts() -> Iterator[np.ndarray]:
             if name in spec.kinds:
-                one = TableSpec(spec.path, {name: spec.kinds[name]}, spec.outcome)
+                one = TableSpec(
+                    spec.path, {name: spec.kinds[name]}, spec.outcome, checked=spec.checked
+                )
                 return (c.columns[name] for c in chunks(one, batch_rows))
             w = name if name == spec.weights else None
             o = name if name == spec.offset else None
-            one = TableSpec(spec.path, {}, spec.outcome, w, o)
+            one = TableSpec(spec.path, {}, spec.outcome, w, o, spec.checked)
             attr = "y" if name == spec.outcome else ("weights" if w else "offset")
             return (getattr(c, attr) for c in chunks(one, batch_rows))
 
@@ -113,7 +116,7 @@ def _fit(
     try:
         enc, spec = kw.pop("encoding"), kw.pop("table")
         parts = file_partitions(
-            spec.path, enc.to_dict(), spec.outcome, weights=spec.weights, offset=spec.offset
+            spec.data.files, enc.to_dict(), spec.outcome, weights=spec.weights, offset=spec.offset
         )
         de = DaskEngine(client, parts)
         return fit_logistic_dask(de, **kw), client
@@ -151,10 +154,12 @@ def fit_version_from_path(
         )
     if engine == "dask":
         _scheduler(settings, scheduler)
-    resolved = str(allowed_path(path, settings.fit_data_dirs))
+    checked = data_files(path, settings.fit_data_dirs)  # every file the reader will open
+    resolved = str(checked.path)
     features = [f.model_dump(exclude_none=True) for f in spec.features]
     kinds = {f.name: f.kind for f in spec.features}
-    table = TableSpec(resolved, kinds, spec.outcome, options.weights, options.offset)
+    table = TableSpec(resolved, kinds, spec.outcome, options.weights, options.offset, checked)
+    check_files(table, ReadLimits.from_settings(settings))
     se = learn_streamed(
         features,
         lambda: chunks(table, batch_rows),
@@ -171,7 +176,9 @@ def fit_version_from_path(
         design_rows=0 if engine == "dask" else min(se.n_obs, 2 * batch_rows),
         interactions=spec.interactions,
     )
-    blocks = file_blocks(resolved, enc, spec.outcome, options.weights, options.offset, batch_rows)
+    blocks = file_blocks(
+        resolved, enc, spec.outcome, options.weights, options.offset, batch_rows, checked
+    )
     kw: dict[str, Any] = {
         "n_terms": len(enc.term_names),
         "term_names": enc.term_names,
@@ -198,7 +205,7 @@ def fit_version_from_path(
         {"name": d.name, "statistic": finite(d.statistic), "df": d.df, "p_value": finite(d.p_value)}
         for d in drops
     ]
-    stats["data_source"] = {"path": resolved, "engine": engine, "encoding_passes": se.passes}
+    stats["data_source"] = {"path": checked.shown, "engine": engine, "encoding_passes": se.passes}
     stats["fit_seconds"] = time.perf_counter() - started
     return store_version(
         session=session,

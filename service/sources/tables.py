@@ -1,9 +1,17 @@
 """Stream the needed columns of a Parquet dataset or a CSV file as typed numpy chunks.
 
-Reading is pyarrow's: ``pyarrow.dataset`` scans one Parquet file, a directory of Parquet
-files (files in sorted path order) or CSV files, projecting only the named columns and
-yielding record batches of at most ``batch_rows`` rows with read-ahead switched off, so the
-memory of a pass is bounded by one batch (and one Parquet row group being decoded).
+Reading is pyarrow's: ``pyarrow.dataset`` scans an explicit list of files (the checked
+files of :func:`service.sources.paths.data_files`, in sorted path order; pyarrow never
+lists a directory itself): Parquet files, or CSV files when every file is one, projecting
+only the named columns and yielding record batches of at most ``batch_rows`` rows with
+read-ahead switched off, so the memory of a pass is bounded by one batch (and one Parquet
+row group being decoded, bounded from each file's footer by
+:func:`service.sources.file_limits.check_parquet`: :func:`check_files`).
+
+Errors name files relative to their allowed directory and never quote a file: a file pyarrow
+cannot read is named with the kind of failure (and the row for CSV), not pyarrow's message,
+which may hold a line of the file or an absolute path. Categorical text is normalised to
+NFC (:func:`service.data_io.nfc_arrow`).
 Every batch is converted by :func:`service.data_io.coerce_column` /
 :func:`~service.data_io.coerce_outcome`, the same conversion an upload gets, with error
 fields ``data.path[row].column`` counted from the first row of the dataset.
@@ -15,19 +23,24 @@ level written ``3`` stays ``"3"``; ``3.0`` stays ``"3.0"``).
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.csv as pa_csv
 import pyarrow.dataset as ds
+import pyarrow.parquet as pq
 
-from service.data_io import NUMERIC_KINDS, FieldNamer, coerce_column, coerce_outcome
+from service.data_io import NUMERIC_KINDS, FieldNamer, coerce_column, coerce_outcome, nfc_arrow
 from service.errors import DataError, MissingFeatureError
 
-__all__ = ["BATCH_ROWS", "Chunk", "TableSpec", "chunks"]
+from .file_limits import ReadLimits, check_parquet
+from .paths import DataFiles, files_under
+from .upload_read import HEADER_BYTES, csv_header
+
+__all__ = ["BATCH_ROWS", "Chunk", "TableSpec", "check_files", "chunks"]
 
 BATCH_ROWS = 65_536
 _CSV_SUFFIXES = (".csv", ".csv.gz", ".txt")
@@ -35,13 +48,26 @@ _CSV_SUFFIXES = (".csv", ".csv.gz", ".txt")
 
 @dataclass(frozen=True)
 class TableSpec:
-    """Which file(s) and columns to read: ``kinds`` maps each feature to its kind."""
+    """Which file(s) and columns to read: ``kinds`` maps each feature to its kind.
+
+    ``checked``: the files of ``path`` as checked against the allowed directories; without
+    it, ``path``'s own directory is the one allowed directory (:func:`files_under`).
+    """
 
     path: str
     kinds: Mapping[str, str]
     outcome: str
     weights: str | None = None
     offset: str | None = None
+    checked: DataFiles | None = None
+
+    @property
+    def data(self) -> DataFiles:
+        return self.checked if self.checked is not None else files_under(self.path)
+
+    @property
+    def shown(self) -> str:
+        return self.checked.shown if self.checked is not None else self.path
 
     @property
     def columns(self) -> list[str]:
@@ -61,44 +87,51 @@ class Chunk:
     offset: np.ndarray | None
 
 
-def _is_csv(path: Path) -> bool:
-    if path.is_dir():
-        return any(p.name.lower().endswith(_CSV_SUFFIXES) for p in path.iterdir()) and not any(
-            p.suffix.lower() == ".parquet" for p in path.iterdir()
+def _is_csv(files: DataFiles) -> bool:
+    csv = [f.lower().endswith(_CSV_SUFFIXES) for f in files.files]
+    if any(csv) and not all(csv):
+        raise DataError(
+            f"the directory {files.shown} mixes CSV and other files",
+            field="data.path",
+            value=files.shown,
+            remedy="keep one format per directory (Parquet files, or CSV files)",
         )
-    return path.name.lower().endswith(_CSV_SUFFIXES)
+    return all(csv)
 
 
 def _dataset(spec: TableSpec, batch_rows: int) -> ds.Dataset:
-    path = Path(spec.path)
-    if not path.exists():
-        raise DataError(
-            f"no file or directory at {spec.path}",
-            field="data.path",
-            value=spec.path,
-            remedy="give the path of a Parquet file, a directory of Parquet files or a CSV file",
-        )
+    files = spec.data
     try:
-        if _is_csv(path):
+        if _is_csv(files):
             types = {c: pa.float64() for c in spec.columns}
             types.update({n: pa.string() for n, k in spec.kinds.items() if k not in NUMERIC_KINDS})
             fmt = ds.CsvFileFormat(
                 convert_options=pa_csv.ConvertOptions(column_types=types),
                 read_options=pa_csv.ReadOptions(block_size=max(batch_rows * 64, 1 << 16)),
             )
-            return ds.dataset(str(path), format=fmt)
-        return ds.dataset(str(path), format="parquet")
+            return ds.dataset(list(files.files), format=fmt)
+        return ds.dataset(list(files.files), format="parquet")
     except (pa.ArrowInvalid, OSError, ValueError) as exc:
         raise _unreadable(spec, exc) from exc
 
 
 def _unreadable(spec: TableSpec, exc: Exception) -> DataError:
-    first = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else type(exc).__name__
+    """The failure's kind and (CSV) row, never pyarrow's text: it may quote the file."""
+    text = str(exc)
+    where = [f"{m.group(1)} {m.group(2)}" for m in re.finditer(r"(Row|column) #(\d+)", text)]
+    if "CSV" in text:
+        what = "CSV parse error"
+    elif "arquet" in text:
+        what = "Parquet read error"
+    else:
+        what = type(exc).__name__
+    detail = f"{what}{' at ' + ', '.join(where[:2]) if where else ''}"
     return DataError(
-        f"the data at {spec.path} could not be read: {first}",
+        f"the data at {spec.shown} could not be read: {detail}",
         field="data.path",
-        value=spec.path,
-        remedy="give a readable Parquet file or directory, or a UTF-8 CSV file with a header",
+        value=spec.shown,
+        remedy="give a readable Parquet file or directory, or a UTF-8 CSV file with a header "
+        "row and the same columns in every row",
     )
 
 
@@ -107,12 +140,35 @@ def _check_columns(dataset: ds.Dataset, spec: TableSpec) -> None:
     for name in spec.columns:
         if name not in present:
             raise MissingFeatureError(
-                f"the data at {spec.path} have no column {name!r}",
+                f"the data at {spec.shown} have no column {name!r}",
                 field=f"data.columns.{name}",
                 value=name,
-                remedy=f"add a column named {name}; the data have: "
-                + ", ".join(sorted(present))[:300],
+                remedy=f"add a column named {name} to the data (they have "
+                f"{len(present)} columns), or remove it from the spec",
             )
+
+
+def check_files(spec: TableSpec, limits: ReadLimits) -> None:
+    """Refuse, before reading them, files over the limits: a Parquet file whose row groups
+    decode over the budget or that has too many columns (its footer), a CSV file whose header
+    row has too many columns."""
+    files = spec.data
+    if _is_csv(files):
+        for path in files.files:
+            with open(path, "rb") as f:
+                csv_header(f.read(HEADER_BYTES), limits)
+        return
+    for path, name in zip(files.files, files.names, strict=True):
+        try:
+            pf = pq.ParquetFile(
+                path,
+                thrift_string_size_limit=limits.max_footer_bytes,
+                thrift_container_size_limit=limits.max_footer_bytes,
+            )
+        except (pa.ArrowInvalid, OSError, ValueError) as exc:
+            raise _unreadable(spec, exc) from exc
+        with pf:
+            check_parquet(pf, spec.columns, limits, whole=False, shown=name)
 
 
 def _namer(name: str, start: int) -> FieldNamer:
@@ -122,6 +178,11 @@ def _namer(name: str, start: int) -> FieldNamer:
 def _typed(values: np.ndarray) -> np.ndarray:
     """Text columns as fixed-width ``str`` arrays (vectorised level matching downstream)."""
     return values.astype(str) if values.dtype == object else values
+
+
+def _text(batch: pa.RecordBatch, name: str, kind: str) -> pa.Array:
+    col = batch.column(name)
+    return col if kind in NUMERIC_KINDS else nfc_arrow(col)
 
 
 def _numbers(batch: pa.RecordBatch, name: str, start: int) -> np.ndarray:
@@ -152,7 +213,7 @@ def chunks(spec: TableSpec, batch_rows: int = BATCH_ROWS) -> Iterator[Chunk]:
         if m == 0:
             continue
         cols = {
-            name: _typed(coerce_column(name, kind, batch.column(name), _namer(name, start)))
+            name: _typed(coerce_column(name, kind, _text(batch, name, kind), _namer(name, start)))
             for name, kind in spec.kinds.items()
         }
         y = coerce_outcome(spec.outcome, batch.column(spec.outcome), _namer(spec.outcome, start))

@@ -126,3 +126,57 @@ def test_an_upload_spooled_to_disk_fits_as_one_kept_in_memory(
     assert kept.status_code == spooled.status_code == 201, spooled.text
     assert spooled.json()["term_table"] == kept.json()["term_table"]
     assert spooled.json()["data_fingerprint"] == kept.json()["data_fingerprint"]
+
+
+# Unicode canonical equivalence (Unicode Standard Annex #15): "b\u00e9ton" (precomposed, NFC)
+# and "be\u0301ton" (e + combining acute, NFD) are the same text, so the same level.
+NFC_LEVEL = "b\u00e9ton"
+NFD_LEVEL = "be\u0301ton"
+
+
+def _mixed_spellings(n: int, seed: int) -> tuple[dict[str, list[Any]], dict[str, list[Any]]]:
+    """Columns with 'ductile iron' renamed: once all NFC, once NFC and NFD alternating."""
+    cols = segments(n, seed=seed)
+    nfc = [NFC_LEVEL if m == "ductile iron" else m for m in cols["material"]]
+    mixed = [
+        (NFD_LEVEL if i % 2 else NFC_LEVEL) if m == "ductile iron" else m
+        for i, m in enumerate(cols["material"])
+    ]
+    assert NFC_LEVEL in mixed and NFD_LEVEL in mixed and NFC_LEVEL != NFD_LEVEL
+    return {**cols, "material": nfc}, {**cols, "material": mixed}
+
+
+def test_nfc_and_nfd_spellings_of_a_level_are_one_level(api: ApiClient) -> None:
+    nfc, mixed = _mixed_spellings(900, seed=23)
+    base = api.post("/risk-models/nfc/versions", json={**SPEC, "data": {"columns": nfc}})
+    assert base.status_code == 201, base.text
+    material = next(f for f in base.json()["encoding"]["features"] if f["name"] == "material")
+    assert NFC_LEVEL in material["levels"] and len(material["levels"]) == 4
+    as_dict = pa.table({**mixed, "material": pa.array(mixed["material"]).dictionary_encode()})
+    answers = {
+        "columns": api.post(
+            "/risk-models/cols/versions", json={**SPEC, "data": {"columns": mixed}}
+        ),
+        "rows": api.post(
+            "/risk-models/rows/versions",
+            json=fit_body()
+            | {
+                "data": {
+                    "rows": [
+                        dict(zip(mixed, vals, strict=True))
+                        for vals in zip(*mixed.values(), strict=True)
+                    ]
+                }
+            },
+        ),
+        "csv": _upload(api, "csv", _csv(pa.table(mixed)), "csv"),
+        "parquet": _upload(api, "parquet", _parquet(pa.table(mixed)), "parquet"),
+        "parquet-dictionary": _upload(api, "parquet-dict", _parquet(as_dict), "parquet"),
+    }
+    for how, r in answers.items():
+        assert r.status_code == 201, (how, r.text)
+        got = r.json()
+        assert got["encoding"] == base.json()["encoding"], how  # one level, stored as NFC
+        assert got["training_ranges"] == base.json()["training_ranges"], how
+        assert got["data_fingerprint"] == base.json()["data_fingerprint"], how
+        assert got["term_table"] == base.json()["term_table"], how
