@@ -28,7 +28,7 @@ import numpy as np
 
 from service.errors import DataError
 from service.stats.design import Encoding
-from service.stats.predict import Prediction, predict
+from service.stats.predict import Prediction, all_finite, predict
 
 __all__ = [
     "DEFAULT_EXTRAPOLATION_LIMIT",
@@ -43,6 +43,8 @@ __all__ = [
 
 _NO_WARNINGS: tuple[str, ...] = ()
 DEFAULT_EXTRAPOLATION_LIMIT = 10.0  # as service.config.Settings.extrapolation_limit
+_TAME = 1e150  # design entries below this cannot overflow eta or x'Vx for sane coefficients
+_FEW = 8
 _SETTING = "RISKFIT_EXTRAPOLATION_LIMIT"
 
 #: (feature or offset name, row) -> (field path of the request, raw value sent)
@@ -133,16 +135,18 @@ def checked_predict(
     """:func:`~service.stats.predict.predict`, refusing a record whose design row, ``eta``
     or ``se_eta`` is not a finite number (it names the feature with the largest entry)."""
     try:
-        with np.errstate(over="ignore", invalid="ignore"):  # non-finite results refused below
+        if X.shape[0] <= _FEW and max(map(abs, X.ravel().tolist())) < _TAME:  # the 1-record path
             pred = predict(X, coef, cov, offset=offset, confidence_level=confidence_level)
+        else:
+            with np.errstate(over="ignore", invalid="ignore"):  # non-finite results refused below
+                pred = predict(X, coef, cov, offset=offset, confidence_level=confidence_level)
     except DataError:
         bad = ~np.isfinite(X).all(axis=1)
         if not bad.any():
             raise
         raise _unscorable(X, int(np.argmax(bad)), encoding, offset, offset_name, where) from None
-    finite = np.isfinite(pred.eta) & np.isfinite(pred.se_eta)
-    if not finite.all():
-        i = int(np.argmin(finite))
+    if not (all_finite(pred.eta) and all_finite(pred.se_eta)):
+        i = int(np.argmin(np.isfinite(pred.eta) & np.isfinite(pred.se_eta)))
         raise _unscorable(X, i, encoding, offset, offset_name, where)
     return pred
 

@@ -127,11 +127,11 @@ class RecordPlan:
                 else:  # numpy's own log and spline basis, as the general path calls them
                     xs = np.array([number])
                     xs = np.log(xs) if f.transform == "log" else xs
-                    part = (
-                        np.concatenate([xs, spline_basis(xs, f.knots)[0]])
-                        if f.kind == "spline"
-                        else xs
-                    )
+                    if f.kind == "spline":
+                        with np.errstate(over="ignore"):  # a huge value: refused when predicted
+                            part = np.concatenate([xs, spline_basis(xs, f.knots)[0]])
+                    else:
+                        part = xs
                     row[first : first + part.shape[0]] = part
             if f.name in self._in_interactions:
                 parts[f.name] = part if part is not None else row[first : first + 1].copy()

@@ -212,8 +212,7 @@ def score_record(
     The same rows and answer bytes as the general path (tests/api/test_score_record.py), or
     None when the plan leaves the record to the general path (which words any error).
     """
-    with np.errstate(over="ignore", invalid="ignore"):  # overflow: refused when predicted
-        d = v.record_plan.design(record)
+    d = v.record_plan.design(record)
     if d is None or (d.outside and v.guard(extrapolation_limit).exceeds(d.outside)):
         return None
     keys = record_keys([d.key], "records")

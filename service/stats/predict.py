@@ -23,6 +23,7 @@ value exceeds the largest double; callers refuse such rows (service/score_guard.
 from __future__ import annotations
 
 import functools
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -30,9 +31,17 @@ from scipy.special import expit, ndtri
 
 from service.errors import DataError, SpecError
 
-__all__ = ["Prediction", "contributions", "predict", "z_value"]
+__all__ = ["Prediction", "all_finite", "contributions", "predict", "z_value"]
 
 _CHUNK = 65536
+_FEW = 8  # up to this many values, Python's own checks beat a numpy reduction
+
+
+def all_finite(a: np.ndarray) -> bool:
+    """Whether every value of the 1-d float array ``a`` is finite (cheap for a few values)."""
+    if a.shape[0] <= _FEW:
+        return all(map(math.isfinite, a.tolist()))
+    return bool(np.isfinite(a).all())
 
 
 @dataclass(frozen=True)
@@ -104,7 +113,7 @@ def predict(
             Xc = X[start : start + _CHUNK]
             se[start : start + _CHUNK] = np.einsum("ij,ij->i", np.dot(Xc, cov), Xc)  # no GIL
     se = np.sqrt(np.maximum(se, 0.0))  # rounding can leave -0 or -1e-17
-    if not np.isfinite(se).all():  # overflow in x cov x': those rows again, scaled
+    if not all_finite(se):  # overflow in x cov x': those rows again, scaled
         rows = np.flatnonzero(~np.isfinite(se))
         scale = np.abs(X[rows]).max(axis=1)
         Y = X[rows] / scale[:, None]

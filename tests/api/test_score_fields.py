@@ -21,7 +21,6 @@ import pytest
 from sqlalchemy import select
 
 from models_store.orm import Score
-from service.score_input import level_spelling, spelled
 from tests.api._data import NEW_RECORDS, fit_body, segments
 from tests.api.conftest import ApiClient, row_count, store_dump
 
@@ -176,6 +175,8 @@ def test_nfd_text_scores_as_the_nfc_level(api: ApiClient) -> None:
 
 
 def test_a_version_stored_with_nfd_levels_still_scores_both_spellings() -> None:
+    from service.score_input import level_spelling, spelled  # new in this change
+
     stored = ["PVC", "fonte ductile " + NFD_E]  # a version fitted before fit data were NFC
     spelling = level_spelling(stored)
     sent = np.array(["PVC", "fonte ductile " + NFC_E, "fonte ductile " + NFD_E], dtype=object)

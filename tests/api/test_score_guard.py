@@ -20,7 +20,6 @@ from typing import Any
 
 import numpy as np
 import pytest
-import statsmodels.api as sm
 
 from models_store.models import require_model
 from models_store.versions import require_version
@@ -90,7 +89,7 @@ def test_guard_bounds_are_k_training_ranges(api: ApiClient) -> None:
         assert r.status_code == 200, r.text
         assert r.json()["scores"][0]["warnings"][0].startswith("extrapolation: age_years=")
     # a log feature is guarded on its raw scale: diameter_mm fitted on [100, 450]
-    dlo, dhi = _guard_bounds(features["diameter_mm"])
+    _, dhi = _guard_bounds(features["diameter_mm"])
     r = api.post(SCORE, json={"records": [{**NEW_RECORDS[0], "diameter_mm": dhi * 1.01}]})
     assert r.status_code == 422 and r.json()["error"]["field"] == "records[0].diameter_mm"
 
