@@ -112,10 +112,14 @@ def _keys(values: Sequence[Any], field: Callable[[int], str]) -> list[str | None
 
 
 def records_input(records: Sequence[Mapping[str, Any]], names: Sequence[str]) -> ScoreInput:
-    """Rows (``records[i][name]``) as columns; a record lacking a name is a missing feature."""
+    """Rows (``records[i][name]``) as columns; a record lacking a name is a missing feature
+    (or, when it also has unknown fields, most likely a misspelt one: those are named)."""
     try:
         cols: dict[str, Any] = {name: list(map(itemgetter(name), records)) for name in names}
     except KeyError:
+        i, r = next((i, r) for i, r in enumerate(records) if not all(map(r.__contains__, names)))
+        if not frozenset(names).union(_RESERVED).issuperset(r):
+            raise unknown_fields(r, i, names) from None
         cols = columns_from_rows(records, names, "records")  # names the first record lacking one
     if set(map(len, records)) != {len(names)}:  # every name is there: anything more?
         known = frozenset(names).union(_RESERVED)
@@ -141,7 +145,7 @@ def unknown_fields(record: Mapping[str, Any], i: int, names: Sequence[str]) -> D
     known = [*names, *(r for r in _RESERVED if r not in names)]
     unknown = [k for k in record if k not in known]
     hints = [
-        f"{u!r} -> {close[0]!r}"
+        f"{close[0]!r} for {u!r}"
         for u in unknown
         if (close := difflib.get_close_matches(str(u), list(names), n=1))
     ]

@@ -57,7 +57,7 @@ def test_a_misspelt_field_is_refused_in_every_layout(api: ApiClient) -> None:
     assert err["field"] == "records[1].agee" and err["value"] == 40
     assert "records[1]" in err["message"] and "'agee'" in err["message"]
     assert (
-        "'age_years'" in err["message"] and "did you mean 'agee' -> 'age_years'" in err["message"]
+        "'age_years'" in err["message"] and "did you mean 'age_years' for 'agee'?" in err["message"]
     )
     assert "passthrough" in err["remedy"]
     assert err["details"]["unknown"] == ["agee"]
@@ -183,3 +183,15 @@ def test_a_version_stored_with_nfd_levels_still_scores_both_spellings() -> None:
     assert spelled(sent, spelling).tolist() == ["PVC", stored[1], stored[1]]
     ascii_only = np.array(["PVC", "PVC"], dtype=object)
     assert spelled(ascii_only, level_spelling(["PVC", "cast iron"])) is ascii_only
+
+
+def test_a_misspelt_feature_is_named_with_its_likely_meaning(api: ApiClient) -> None:
+    _fit(api)
+    rec = {k: v for k, v in NEW_RECORDS[0].items() if k != "age_years"}
+    rec["age_yaers"] = 85  # misspelt instead of missing
+    for body in ({"records": [rec]}, {"records": [NEW_RECORDS[1], rec]}):
+        r = api.post(SCORE, json=body)
+        assert r.status_code == 422, r.text
+        err = r.json()["error"]
+        assert err["field"].endswith("].age_yaers") and err["value"] == 85
+        assert "did you mean 'age_years' for 'age_yaers'?" in err["message"]
