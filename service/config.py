@@ -182,6 +182,14 @@ class Settings(BaseSettings):
         "the lock taken over by the next refit once its lease runs out.",
     )
 
+    extrapolation_limit: float = Field(
+        10.0,
+        ge=0.0,
+        description="Scoring refuses (422) a numeric value more than this many training "
+        "ranges (max - min) outside its feature's training range; milder extrapolation is "
+        "scored with a warning. 0 turns the guard off (service/score_guard.py).",
+    )
+
     @field_validator("database_url")
     @classmethod
     def _url_has_scheme(cls, value: str) -> str:

@@ -2,7 +2,8 @@
 
 The body is ``{"model", "version", "confidence_level", "ci_method", "n_records", "created_at",
 "scores": [item, ...]}`` with items ``{"score_id", "key", "probability", "ci_lower", "ci_upper",
-"eta", "se_eta", "warnings"}`` (:data:`ITEM_KEYS`), the same bytes :func:`service.api.responses.
+"eta", "se_eta", "warnings"}`` (:data:`ITEM_KEYS`, then ``"passthrough"`` in every item when
+the request sent any), the same bytes :func:`service.api.responses.
 dumps` makes of the dict form, but without building one dict per record: every number column is
 rendered by one orjson call on its numpy array (the same shortest round-trip text orjson writes
 for a Python float; NaN and infinities become ``null`` either way) and split, and each item is
@@ -61,17 +62,29 @@ def answer_json(
     keys: Sequence[str | None] | None,
     columns: Sequence[np.ndarray],
     warnings: Sequence[Sequence[str]],
+    passthrough: Sequence[dict[str, Any] | None] | None = None,
 ) -> bytes:
     """``header`` (ends before ``scores``) plus the items, as one JSON object.
 
     ``columns`` = (probability, ci_lower, ci_upper, eta, se_eta) arrays of shape (n,); ``ids``
-    are UUID text (no character needs escaping); ``keys`` None means no record has one.
+    are UUID text (no character needs escaping); ``keys`` None means no record has one;
+    ``passthrough`` None means no record has one (the items then have no such field).
     """
     n = len(ids)
     id_text = "\n".join(ids).encode().split(b"\n")  # one encode for the whole column
     key_text = _texts(keys) if keys is not None else [b"null"] * n
     warn_text = [orjson.dumps(list(w)) if w else b"[]" for w in warnings]
     numbers = [_numbers(c) for c in columns]
-    items = b",".join([_ITEM % t for t in zip(id_text, key_text, *numbers, warn_text, strict=True)])
+    rows = zip(id_text, key_text, *numbers, warn_text, strict=True)
+    if passthrough is None:
+        items = b",".join([_ITEM % t for t in rows])
+    else:
+        extra = [orjson.dumps(p) for p in passthrough]
+        items = b",".join(
+            [
+                _ITEM[:-1] % t + b',"passthrough":' + e + b"}"
+                for t, e in zip(rows, extra, strict=True)
+            ]
+        )
     head = dumps({**header, "scores": []})  # ends with "scores":[]}
     return b"".join((head[:-2], items, b"]}"))

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 import orjson
 
+from service.score_input import KEY_FIELD, PASSTHROUGH_FIELD
 from service.stats.design import EncodedFeature, Encoding
 from service.stats.splines import spline_basis
 
@@ -56,7 +57,7 @@ class RecordDesign:
 
     ``X`` (1, p); ``outside`` the (feature, raw value) pairs outside the training range, in
     feature order; ``offset`` (1,) or None; ``inputs_json`` the score log's inputs object;
-    ``key`` the raw ``key`` field (or None).
+    ``key`` the raw ``key`` field (or None); ``passthrough`` the raw passthrough (or None).
     """
 
     X: np.ndarray
@@ -64,6 +65,7 @@ class RecordDesign:
     offset: np.ndarray | None
     inputs_json: str
     key: Any
+    passthrough: Any = None
 
 
 class RecordPlan:
@@ -82,6 +84,8 @@ class RecordPlan:
         ]
         self._in_interactions = frozenset(n for a, b in encoding.interactions for n in (a, b))
         self._inputs = tuple(inputs)
+        self._known = frozenset(inputs).union((KEY_FIELD, PASSTHROUGH_FIELD))
+        self._passthrough = PASSTHROUGH_FIELD not in self._inputs
         self._offset = offset
         # Anything this plan does not know (a new kind or transform, an offset that is also
         # a feature) leaves it off: every record then takes the general path.
@@ -97,6 +101,8 @@ class RecordPlan:
             by_name = {name: record[name] for name in self._inputs}
         except KeyError:
             return None  # a missing feature: the general path names it
+        if len(record) != len(self._inputs) and not self._known.issuperset(record):
+            return None  # an unknown field: the general path names it
         x = np.zeros((1, self._p))
         row = x[0]
         row[0] = 1.0
@@ -121,11 +127,11 @@ class RecordPlan:
                 else:  # numpy's own log and spline basis, as the general path calls them
                     xs = np.array([number])
                     xs = np.log(xs) if f.transform == "log" else xs
-                    part = (
-                        np.concatenate([xs, spline_basis(xs, f.knots)[0]])
-                        if f.kind == "spline"
-                        else xs
-                    )
+                    if f.kind == "spline":
+                        with np.errstate(over="ignore"):  # a huge value: refused when predicted
+                            part = np.concatenate([xs, spline_basis(xs, f.knots)[0]])
+                    else:
+                        part = xs
                     row[first : first + part.shape[0]] = part
             if f.name in self._in_interactions:
                 parts[f.name] = part if part is not None else row[first : first + 1].copy()
@@ -142,7 +148,8 @@ class RecordPlan:
             outside=outside,
             offset=offset,
             inputs_json=orjson.dumps(by_name).decode(),
-            key=record.get("key"),
+            key=record.get(KEY_FIELD),
+            passthrough=record.get(PASSTHROUGH_FIELD) if self._passthrough else None,
         )
 
 

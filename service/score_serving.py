@@ -95,6 +95,7 @@ async def serve_scores(
     model, champion = known
     options, data, is_columns = parse()
     level = options.confidence_level or state.settings.default_confidence_level
+    limit = state.settings.extrapolation_limit
     writer = writer_of(state)
     for _ in range(_MAX_TRIES):
         number = version_to_score(model, options.version, champion)  # 404 without a champion
@@ -112,6 +113,7 @@ async def serve_scores(
                     confidence_level=level,
                     explain=options.explain,
                     checks_champion=claims_champion,
+                    extrapolation_limit=limit,
                 )
                 if one is not None:
                     return one
@@ -123,6 +125,7 @@ async def serve_scores(
                 confidence_level=level,
                 explain=options.explain,
                 checks_champion=claims_champion,
+                extrapolation_limit=limit,
             )
 
         try:

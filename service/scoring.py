@@ -33,18 +33,29 @@ from service.api.responses import dumps
 from service.data_io import coerce_column
 from service.errors import VersionNotFoundError
 from service.score_answer import ITEM_KEYS, answer_json
+from service.score_guard import (
+    DEFAULT_EXTRAPOLATION_LIMIT,
+    Where,
+    check_columns,
+    checked_predict,
+    extrapolation_warning,
+    warnings_of,
+)
 from service.score_input import (
+    PASSTHROUGH_FIELD,
+    Passthrough,
     ScoreInput,
     coerced,
     columns_input,
     namer,
+    passthrough,
     record_keys,
     records_input,
 )
 from service.score_log_rows import inputs_json, new_score_ids
 from service.score_writer import ScoreLogWriter, ScoreRows
 from service.stats.design import design_matrix
-from service.stats.predict import contributions, predict
+from service.stats.predict import contributions
 from service.version_cache import LoadedVersion, VersionCache
 
 __all__ = [
@@ -90,28 +101,12 @@ def _champion_or_error(model: RiskModel, champion: int | None) -> int:
     return champion
 
 
-def _inputs_json(data: ScoreInput, v: LoadedVersion) -> list[str]:
-    """Each record's inputs (the columns the version uses) as a JSON object."""
+def _inputs_json(data: ScoreInput, v: LoadedVersion, cols: Mapping[str, np.ndarray]) -> list[str]:
+    """Each record's inputs (the columns the version uses) as a JSON object; categorical
+    text as it was matched to the levels (``cols``: NFC), numbers as they were sent."""
     numeric = {nm for nm in v.inputs if v.kinds.get(nm, "numeric") != "categorical"}
-    return inputs_json(data.columns, v.inputs, numeric)
-
-
-def _warnings(
-    n: int, extrapolated: Mapping[str, np.ndarray], cols: Mapping[str, np.ndarray], v: LoadedVersion
-) -> list[Any]:
-    out: list[Any] = [_NO_WARNINGS] * n
-    for name, mask in extrapolated.items():
-        for i in np.flatnonzero(mask):
-            out[int(i)] = [*out[int(i)], _extrapolation(name, float(cols[name][i]), v)]
-    return out
-
-
-def _extrapolation(name: str, value: float, v: LoadedVersion) -> str:
-    r = v.ranges.get(name, {})
-    return (
-        f"extrapolation: {name}={value:g} is outside the training "
-        f"range [{r.get('min', float('nan')):g}, {r.get('max', float('nan')):g}]"
-    )
+    sent = {nm: cols[nm] if nm not in numeric else data.columns[nm] for nm in v.inputs}
+    return inputs_json(sent, v.inputs, numeric)
 
 
 @dataclass(frozen=True)
@@ -136,6 +131,7 @@ def prepare_batch(
     confidence_level: float,
     explain: bool,
     cache: VersionCache,
+    extrapolation_limit: float = DEFAULT_EXTRAPOLATION_LIMIT,
 ) -> ScoredBatch:
     """Score a batch (``data(v)`` gives the raw columns version ``v`` needs); nothing stored.
 
@@ -145,7 +141,12 @@ def prepare_batch(
     number = resolve_version(session, model, version)
     v = cache.get(session, model, number)
     return score_prepared(
-        model=model, v=v, batch=data(v), confidence_level=confidence_level, explain=explain
+        model=model,
+        v=v,
+        batch=data(v),
+        confidence_level=confidence_level,
+        explain=explain,
+        extrapolation_limit=extrapolation_limit,
     )
 
 
@@ -157,24 +158,39 @@ def score_prepared(
     confidence_level: float,
     explain: bool,
     checks_champion: bool = False,
+    extrapolation_limit: float = DEFAULT_EXTRAPOLATION_LIMIT,
 ) -> ScoredBatch:
     """Score ``batch`` with the decoded version ``v``: no store access at all.
 
     ``checks_champion``: ``v`` was taken as the champion without reading the store, so the
     commit must find it still the champion (:func:`service.score_writer.check_champion`).
+    ``extrapolation_limit``: the guard of :mod:`service.score_guard` (0: off).
     """
-    cols = {name: coerced(batch, name, kind) for name, kind in v.kinds.items()}
+    cols = {
+        name: coerced(batch, name, kind, v.spellings.get(name)) for name, kind in v.kinds.items()
+    }
+
+    def where(name: str, i: int) -> tuple[str, Any]:
+        return batch.field(name, i), batch.columns[name][i]
+
+    check_columns(v.guard(extrapolation_limit), cols, where)
     offset = None
     if v.offset:
         offset = coerce_column(v.offset, "numeric", batch.columns[v.offset], namer(batch, v.offset))
-    design = design_matrix(v.encoding, cols, field_prefix=batch.prefix)
+    with np.errstate(over="ignore", invalid="ignore"):  # overflow: refused when predicted
+        design = design_matrix(v.encoding, cols, field_prefix=batch.prefix)
     return _scored(
         model,
         v,
         _Designed(
-            design.X, offset, batch.keys, lambda: _warnings(batch.n, design.extrapolated, cols, v)
+            design.X,
+            offset,
+            batch.keys,
+            lambda: warnings_of(batch.n, design.extrapolated, cols, v.ranges),
+            where,
+            batch.passthrough,
         ),
-        lambda: _inputs_json(batch, v),
+        lambda: _inputs_json(batch, v, cols),
         confidence_level=confidence_level,
         explain=explain,
         checks_champion=checks_champion,
@@ -189,6 +205,7 @@ def score_record(
     confidence_level: float,
     explain: bool,
     checks_champion: bool = False,
+    extrapolation_limit: float = DEFAULT_EXTRAPOLATION_LIMIT,
 ) -> ScoredBatch | None:
     """:func:`score_prepared` for one record through the version's compiled plan.
 
@@ -196,11 +213,18 @@ def score_record(
     None when the plan leaves the record to the general path (which words any error).
     """
     d = v.record_plan.design(record)
-    if d is None:
+    if d is None or (d.outside and v.guard(extrapolation_limit).exceeds(d.outside)):
         return None
     keys = record_keys([d.key], "records")
-    warnings = [[_extrapolation(name, x, v) for name, x in d.outside] or _NO_WARNINGS]
-    designed = _Designed(d.X, d.offset, keys, lambda: warnings)
+    extra = None
+    if d.passthrough is not None:
+        extra = [passthrough(d.passthrough, f"records[0].{PASSTHROUGH_FIELD}")]
+    warnings = [[extrapolation_warning(n, x, v.ranges) for n, x in d.outside] or _NO_WARNINGS]
+
+    def where(name: str, i: int) -> tuple[str, Any]:
+        return f"records[{i}].{name}", record[name]
+
+    designed = _Designed(d.X, d.offset, keys, lambda: warnings, where, extra)
     return _scored(
         model,
         v,
@@ -215,12 +239,16 @@ def score_record(
 @dataclass(frozen=True)
 class _Designed:
     """A batch's design: ``X`` (n, p), the offset (n,) or None, the client keys (None: no
-    record has one) and ``warnings()``, each record's warning texts (extrapolation)."""
+    record has one), ``warnings()``, each record's warning texts (extrapolation), ``where``
+    (an input's field path and raw value, for errors) and each record's passthrough object
+    (None: no record has one)."""
 
     X: np.ndarray
     offset: np.ndarray | None
     keys: list[str | None] | None
     warnings: Callable[[], list[Any]]
+    where: Where
+    passthrough: list[Passthrough] | None = None
 
 
 def _scored(
@@ -235,7 +263,16 @@ def _scored(
 ) -> ScoredBatch:
     """Predict ``d`` with ``v`` and build the log rows (``inputs()``: each record's JSON)."""
     number = v.number
-    pred = predict(d.X, v.coef, v.cov, offset=d.offset, confidence_level=confidence_level)
+    pred = checked_predict(
+        d.X,
+        v.encoding,
+        v.coef,
+        v.cov,
+        offset=d.offset,
+        offset_name=v.offset,
+        confidence_level=confidence_level,
+        where=d.where,
+    )
     n = d.X.shape[0]
     ids = new_score_ids(n)
     created_at = datetime.now(UTC)
@@ -260,6 +297,9 @@ def _scored(
             dict(zip(ITEM_KEYS, t, strict=True))
             for t in zip(ids, keys, p, lo, hi, eta, se, warnings, strict=True)
         ]
+        if d.passthrough is not None:
+            for item, extra in zip(scores, d.passthrough, strict=True):
+                item[PASSTHROUGH_FIELD] = extra
         if explain:
             contrib = contributions(d.X, v.coef).tolist()
             for item, row in zip(scores, contrib, strict=True):
@@ -271,7 +311,7 @@ def _scored(
             return dumps(answer())
         warnings = d.warnings()
         numbers = (pred.probability, pred.ci_lower, pred.ci_upper, pred.eta, pred.se_eta)
-        return answer_json(header(), ids, d.keys, numbers, warnings)
+        return answer_json(header(), ids, d.keys, numbers, warnings, d.passthrough)
 
     return ScoredBatch(rows, answer, answer_bytes)
 
@@ -286,6 +326,7 @@ def score_batch(
     explain: bool,
     cache: VersionCache,
     writer: ScoreLogWriter | None = None,
+    extrapolation_limit: float = DEFAULT_EXTRAPOLATION_LIMIT,
 ) -> dict[str, Any]:
     """Score, log and describe a batch (:func:`prepare_batch`, then the commit, then the answer).
 
@@ -301,6 +342,7 @@ def score_batch(
         confidence_level=confidence_level,
         explain=explain,
         cache=cache,
+        extrapolation_limit=extrapolation_limit,
     )
     log_batch(session, scored.rows, writer)
     return scored.answer()
@@ -342,6 +384,7 @@ def score_records(
     confidence_level: float,
     explain: bool,
     cache: VersionCache,
+    extrapolation_limit: float = DEFAULT_EXTRAPOLATION_LIMIT,
 ) -> dict[str, Any]:
     """:func:`score_batch` for a list of row dicts."""
     return score_batch(
@@ -352,4 +395,5 @@ def score_records(
         confidence_level=confidence_level,
         explain=explain,
         cache=cache,
+        extrapolation_limit=extrapolation_limit,
     )

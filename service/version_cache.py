@@ -25,6 +25,8 @@ from sqlalchemy.orm import Session
 
 from models_store.orm import RiskModel
 from models_store.versions import require_version
+from service.score_guard import ExtrapolationGuard, guard_of
+from service.score_input import LevelSpelling, level_spelling
 from service.score_record import RecordPlan
 from service.stats.design import Encoding
 
@@ -44,10 +46,26 @@ class LoadedVersion:
     cov: np.ndarray
     ranges: dict[str, Any]
     record_plan: RecordPlan = field(init=False, repr=False, compare=False)
+    spellings: dict[str, LevelSpelling] = field(init=False, repr=False, compare=False)
+    _guards: dict[float, ExtrapolationGuard] = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         # compiled once per version: the single-record path (service.score_record)
         object.__setattr__(self, "record_plan", RecordPlan(self.encoding, self.inputs, self.offset))
+        spellings = {
+            f.name: level_spelling(f.levels)
+            for f in self.encoding.features
+            if f.kind == "categorical"
+        }
+        object.__setattr__(self, "spellings", spellings)
+        object.__setattr__(self, "_guards", {})
+
+    def guard(self, limit: float) -> ExtrapolationGuard:
+        """The extrapolation guard for ``limit`` training ranges (built once per limit)."""
+        found = self._guards.get(limit)
+        if found is None:
+            found = self._guards[limit] = guard_of(self.encoding, limit)
+        return found
 
     @property
     def inputs(self) -> list[str]:

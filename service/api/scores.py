@@ -33,6 +33,7 @@ from service.errors import DataError
 from service.limits import JSON_SCOPE_KEY
 from service.schemas import ErrorResponse, ScoreBatchPublic, ScoreCreate
 from service.schemas.scores import ScoreOptions
+from service.score_input import PASSTHROUGH_FIELD
 from service.score_serving import serve_scores
 
 
@@ -136,7 +137,8 @@ def _parse(raw: bytes, parsed: Any = _UNPARSED) -> tuple[ScoreOptions, Any, bool
             _invalid(("columns", name), "a column must be a list of values", col)
         if not nested:
             continue
-        bad = next((j for j, v in enumerate(col) if isinstance(v, list | dict)), None)
+        kinds = list if name == PASSTHROUGH_FIELD else list | dict  # passthrough: objects
+        bad = next((j for j, v in enumerate(col) if isinstance(v, kinds)), None)
         if bad is not None:
             _invalid(("columns", name, bad), "values must be numbers, strings or null", col[bad])
     return options, columns, True
@@ -144,7 +146,7 @@ def _parse(raw: bytes, parsed: Any = _UNPARSED) -> tuple[ScoreOptions, Any, bool
 
 def _refuse_nested(record: dict[str, Any], loc: Any) -> None:
     for name, v in record.items():
-        if isinstance(v, list | dict):
+        if isinstance(v, list) or (isinstance(v, dict) and name != PASSTHROUGH_FIELD):
             _invalid(loc(name), "values must be numbers, strings or null", v)
 
 

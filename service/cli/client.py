@@ -2,10 +2,16 @@
 
     riskfit fit --spec spec.json --data segments.csv [--model NAME] [--url URL]
     riskfit fit --spec spec.json --data /data/segments/ --engine local|dask [--scheduler ADDR]
-    riskfit score --records records.json|.csv [--model NAME] [--version N] [--url URL]
+    riskfit score --records records.json|.csv [--passthrough COL,...] [--model NAME] [--url URL]
 
 Uploads show their progress on stderr; answers are printed as JSON on stdout. The exit code
 is 0 on success, 1 when the server refused the request (its error body is printed).
+
+``score`` sends each record's fields as they are (a CSV column ``key`` is the record's key).
+The server refuses a field that is not one of the model's inputs; ``--passthrough`` names
+columns (e.g. a CSV's own id) to send in each record's ``passthrough`` object instead: they are
+echoed with the record's score and not used for scoring. On such a refusal the command adds a
+one-line hint on stderr naming the columns.
 """
 
 from __future__ import annotations
@@ -86,6 +92,12 @@ def register(subparsers: Any) -> None:
     score.add_argument("--version", type=int, help="version (default: the champion)")
     score.add_argument("--confidence-level", type=float, help="interval level, e.g. 0.9")
     score.add_argument("--explain", action="store_true", help="add per-term contributions")
+    score.add_argument(
+        "--passthrough",
+        metavar="COL,...",
+        help="columns (not features) to send in each record's passthrough object, echoed "
+        "with its score; other columns than the features and 'key' are refused",
+    )
     _add_common(score)
     score.set_defaults(func=run_score)
 
@@ -146,14 +158,52 @@ def _records(path: Path) -> list[dict[str, Any]]:
     return records
 
 
+def _with_passthrough(records: list[dict[str, Any]], names: list[str]) -> None:
+    """Move the fields ``names`` of every record into its ``passthrough`` object."""
+    for r in records:
+        r["passthrough"] = {n: r.pop(n) for n in names if n in r}
+
+
 def run_score(args: argparse.Namespace) -> int:
     import httpx
 
-    body: dict[str, Any] = {"records": _records(args.records), "explain": args.explain}
+    records = _records(args.records)
+    names = [n.strip() for n in (args.passthrough or "").split(",") if n.strip()]
+    missing = [n for n in names if records and n not in records[0]]
+    if missing:
+        print(
+            f"riskfit score: --passthrough column(s) {missing} not in {args.records}",
+            file=sys.stderr,
+        )
+        return 1
+    if names:
+        _with_passthrough(records, names)
+    body: dict[str, Any] = {"records": records, "explain": args.explain}
     if args.version is not None:
         body["version"] = args.version
     if args.confidence_level is not None:
         body["confidence_level"] = args.confidence_level
     with httpx.Client(base_url=args.url, timeout=args.timeout) as c:
         response = c.post(f"/risk-models/{args.model}/scores", json=body, headers=_headers(args))
-    return _finish(response)
+    code = _finish(response)
+    unknown = _unknown_fields(response)
+    if unknown:
+        print(
+            f"riskfit score: {args.records} has column(s) {', '.join(unknown)} that the model "
+            f"does not use; send them back with each score with --passthrough "
+            f"{','.join(unknown)}, or remove them",
+            file=sys.stderr,
+        )
+    return code
+
+
+def _unknown_fields(response: Any) -> list[str]:
+    """The unknown field names of a 422 refusal for unknown record fields (else [])."""
+    if response.status_code != 422:
+        return []
+    try:
+        details = response.json()["error"].get("details") or {}
+    except (ValueError, KeyError, TypeError, AttributeError):
+        return []
+    unknown = details.get("unknown") if isinstance(details, dict) else None
+    return [str(u) for u in unknown] if isinstance(unknown, list) else []

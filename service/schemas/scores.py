@@ -5,7 +5,9 @@ faster layout for big batches), exactly one of the two. The route parses the bod
 and validates only :class:`ScoreOptions` with pydantic; the data are validated as arrays by
 the scoring operation, not as 10,000 pydantic models. :class:`ScoreCreate` is the documented
 body (OpenAPI) and the same checks. The record field (or column) ``key`` is reserved for the
-client's own identifier (unique per model).
+client's own identifier (unique per model), and ``passthrough`` for an object of the client's
+own values echoed with the score; any other field that is not one of the version's inputs is
+refused (422), see :mod:`service.score_input`.
 """
 
 from __future__ import annotations
@@ -20,6 +22,13 @@ from service.schemas.common import StrictModel
 __all__ = ["ScoreBatchPublic", "ScoreCreate", "ScoreOptions", "ScorePublic"]
 
 Scalar = bool | float | int | str | None  # as CellValue in service.schemas.versions
+Passthrough = dict[str, Scalar]
+_PASSTHROUGH = (
+    "`passthrough` (optional) is an object of the caller's own values (text, finite numbers, "
+    "booleans, null; not nested), not used for scoring, echoed in the record's score (text "
+    "in Unicode NFC) and not stored in the score log. Any other field that is not one of the "
+    "version's features or its offset column is refused (422)."
+)
 
 
 class ScoreOptions(StrictModel):
@@ -61,13 +70,17 @@ class ScoreCreate(ScoreOptions):
         },
     )
 
-    records: list[dict[str, Scalar]] | None = Field(
-        None, min_length=1, description="Records to score; `key` (optional) is the client's id."
-    )
-    columns: dict[str, list[Scalar]] | None = Field(
+    records: list[dict[str, Scalar | Passthrough]] | None = Field(
         None,
-        description="The same data by column: one list per feature (and optional `key`), "
-        "all of one length. Faster than `records` for big batches.",
+        min_length=1,
+        description="Records to score: the version's features (and offset column); `key` "
+        "(optional) is the client's id. " + _PASSTHROUGH,
+    )
+    columns: dict[str, list[Scalar | Passthrough]] | None = Field(
+        None,
+        description="The same data by column: one list per feature (and optional `key`, and "
+        "optional `passthrough`: one object or null per record), all of one length. Faster "
+        "than `records` for big batches.",
     )
 
     @model_validator(mode="after")
@@ -78,14 +91,28 @@ class ScoreCreate(ScoreOptions):
 
 
 class ScorePublic(BaseModel):
+    """One record's score. Every number is finite (never null): a record whose linear
+    predictor or its standard error would overflow is refused (422), as is a value beyond the
+    extrapolation guard (``RISKFIT_EXTRAPOLATION_LIMIT`` training ranges outside the training
+    range). Probabilities are doubles: for |eta| above about 37 they round to 0 or 1."""
+
     score_id: str
     key: str | None
-    probability: float
-    ci_lower: float
-    ci_upper: float
-    eta: float = Field(description="Linear predictor (log-odds).")
-    se_eta: float = Field(description="Standard error of eta from the coefficient covariance.")
-    warnings: list[str]
+    probability: float = Field(description="expit(eta), in [0, 1].")
+    ci_lower: float = Field(description="expit(eta - z se_eta), in [0, 1].")
+    ci_upper: float = Field(description="expit(eta + z se_eta), in [0, 1].")
+    eta: float = Field(description="Linear predictor (log-odds), finite.")
+    se_eta: float = Field(
+        description="Standard error of eta from the coefficient covariance, finite and >= 0."
+    )
+    warnings: list[str] = Field(
+        description="E.g. extrapolation: a value outside its feature's training range."
+    )
+    passthrough: Passthrough | None = Field(
+        None,
+        description="The record's `passthrough` object as sent (text in NFC; null when that "
+        "record sent none); the field is present only when some record of the request sent one.",
+    )
     contributions: dict[str, float] | None = None
 
 

@@ -11,11 +11,19 @@ The interval is formed on the logit scale and transformed, so it always lies in
 [0, 1] (common practice; e.g. Hosmer, Lemeshow & Sturdivant, *Applied Logistic
 Regression*, 3rd ed., sec. 1.4). Work is done in row chunks so that temporaries
 stay small for large batches.
+
+Overflow: ``expit`` is scipy's, exact to rounding for every double (``expit(-inf) = 0``,
+``expit(inf) = 1``, no overflow). A row whose quadratic form overflows (entries beyond about
+1e154) is computed again scaled by its largest entry ``s = max_j |x_j|``:
+``se = s * sqrt((x/s) cov (x/s)')`` (the scaling of overflow-free norms, common practice), so
+``se_eta`` is finite whenever its true value is. ``eta`` itself is ``inf`` only when the true
+value exceeds the largest double; callers refuse such rows (service/score_guard.py).
 """
 
 from __future__ import annotations
 
 import functools
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,9 +31,17 @@ from scipy.special import expit, ndtri
 
 from service.errors import DataError, SpecError
 
-__all__ = ["Prediction", "contributions", "predict", "z_value"]
+__all__ = ["Prediction", "all_finite", "contributions", "predict", "z_value"]
 
 _CHUNK = 65536
+_FEW = 8  # up to this many values, Python's own checks beat a numpy reduction
+
+
+def all_finite(a: np.ndarray) -> bool:
+    """Whether every value of the 1-d float array ``a`` is finite (cheap for a few values)."""
+    if a.shape[0] <= _FEW:
+        return all(map(math.isfinite, a.tolist()))
+    return bool(np.isfinite(a).all())
 
 
 @dataclass(frozen=True)
@@ -97,6 +113,11 @@ def predict(
             Xc = X[start : start + _CHUNK]
             se[start : start + _CHUNK] = np.einsum("ij,ij->i", np.dot(Xc, cov), Xc)  # no GIL
     se = np.sqrt(np.maximum(se, 0.0))  # rounding can leave -0 or -1e-17
+    if not all_finite(se):  # overflow in x cov x': those rows again, scaled
+        rows = np.flatnonzero(~np.isfinite(se))
+        scale = np.abs(X[rows]).max(axis=1)
+        Y = X[rows] / scale[:, None]
+        se[rows] = scale * np.sqrt(np.maximum(np.einsum("ij,ij->i", np.dot(Y, cov), Y), 0.0))
     half = z * se
     return Prediction(eta, se, expit(eta), expit(eta - half), expit(eta + half), confidence_level)
 
