@@ -1,0 +1,139 @@
+"""Two pure-ASGI middlewares of web hygiene (no per-request task, no body buffering).
+
+:class:`SecurityHeadersMiddleware` adds response headers by path prefix only, so the JSON
+scoring path pays one string comparison and nothing else:
+
+* ``/dashboard`` (HTML pages, their errors, the sign-in form): a Content-Security-Policy
+  (:data:`DASHBOARD_CSP`: no script at all, styles from the page's own stylesheet and the
+  ``style`` attributes matplotlib writes into inline SVG, images only from itself or
+  ``data:``, forms post only to this origin, no framing), ``X-Frame-Options: DENY``,
+  ``X-Content-Type-Options: nosniff``, ``Referrer-Policy: same-origin`` and, except for the
+  stylesheet, ``Cache-Control: no-store`` (signed-in pages must not stay in shared caches or
+  the back-forward history of a signed-out browser);
+* ``/api-keys`` (answers that carry a new key's secret): ``Cache-Control: no-store``,
+  ``nosniff``;
+* ``/docs``, ``/redoc``: no framing, ``nosniff`` (the API docs page loads its own script).
+
+:class:`BodyTimeoutMiddleware` bounds the wait for each piece of a request body
+(``body_timeout_seconds``): a client that sends headers and then stalls gets 408
+(:class:`~service.errors.RequestTimeoutError`, via the usual error body) with
+``Connection: close``, instead of holding a connection and a worker slot open indefinitely.
+The same wait between successive reads is what reverse proxies call a client body timeout
+(e.g. nginx ``client_body_timeout``); uvicorn itself has none.
+"""
+
+from __future__ import annotations
+
+import asyncio
+
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
+
+from service.errors import RequestTimeoutError
+from service.limits import _answer  # the one error-body writer of the middlewares
+
+__all__ = ["DASHBOARD_CSP", "BodyTimeoutMiddleware", "SecurityHeadersMiddleware"]
+
+DASHBOARD_CSP = (
+    "default-src 'none'; script-src 'none'; style-src 'self' 'unsafe-inline'; "
+    "img-src 'self' data:; form-action 'self'; frame-ancestors 'none'; base-uri 'none'"
+)
+_NOSNIFF = (b"x-content-type-options", b"nosniff")
+_NO_STORE = (b"cache-control", b"no-store")
+_NO_FRAMES = (b"x-frame-options", b"DENY")
+_DASHBOARD = (
+    (b"content-security-policy", DASHBOARD_CSP.encode()),
+    _NO_FRAMES,
+    _NOSNIFF,
+    (b"referrer-policy", b"same-origin"),
+)
+_STYLESHEET = "/dashboard/static/"
+_BODY_METHODS = frozenset({"POST", "PUT", "PATCH", "DELETE"})
+
+
+def _headers_for(path: str) -> tuple[tuple[bytes, bytes], ...] | None:
+    if path.startswith("/dashboard"):
+        if path.startswith(_STYLESHEET):
+            return _DASHBOARD
+        return (*_DASHBOARD, _NO_STORE)
+    if path.startswith("/api-keys"):
+        return (_NO_STORE, _NOSNIFF)
+    if path.startswith(("/docs", "/redoc")):
+        return (_NO_FRAMES, _NOSNIFF)
+    return None
+
+
+class SecurityHeadersMiddleware:
+    """Adds the headers of :func:`_headers_for` (those the app did not set itself)."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        extra = _headers_for(scope["path"]) if scope["type"] == "http" else None
+        if extra is None:
+            await self.app(scope, receive, send)
+            return
+
+        async def send_with_headers(message: Message) -> None:
+            if message["type"] == "http.response.start":
+                headers = list(message.get("headers", ()))
+                present = {k.lower() for k, _ in headers}
+                headers.extend(h for h in extra if h[0] not in present)
+                message = {**message, "headers": headers}
+            await send(message)
+
+        await self.app(scope, receive, send_with_headers)
+
+
+class BodyTimeoutMiddleware:
+    """408 and ``Connection: close`` when the next piece of a body takes over ``timeout`` s."""
+
+    def __init__(self, app: ASGIApp, timeout: float) -> None:
+        self.app = app
+        self.timeout = timeout
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http" or scope["method"] not in _BODY_METHODS:
+            await self.app(scope, receive, send)
+            return
+        timeout = self.timeout
+        body_done = False
+        timed_out = False
+        started = False
+
+        async def timed_receive() -> Message:
+            nonlocal body_done, timed_out
+            if body_done:
+                return await receive()  # waiting for a disconnect: no deadline
+            try:
+                async with asyncio.timeout(timeout):
+                    message = await receive()
+            except TimeoutError:
+                timed_out = True
+                raise RequestTimeoutError(
+                    f"the request body stalled: nothing arrived for {timeout:g} seconds",
+                    field="body",
+                    value=None,
+                    remedy="send the whole body without pausing (an operator may raise "
+                    "RISKFIT_BODY_TIMEOUT_SECONDS for slow links)",
+                    details={"timeout_seconds": timeout},
+                ) from None
+            if message["type"] != "http.request" or not message.get("more_body", False):
+                body_done = True
+            return message
+
+        async def closing_send(message: Message) -> None:
+            nonlocal started
+            if message["type"] == "http.response.start":
+                started = True
+                if timed_out:  # the rest of the body is never read: do not reuse the socket
+                    headers = [*message.get("headers", ()), (b"connection", b"close")]
+                    message = {**message, "headers": headers}
+            await send(message)
+
+        try:
+            await self.app(scope, timed_receive, closing_send)
+        except RequestTimeoutError as exc:
+            if started:
+                raise
+            await _answer(closing_send, exc)
