@@ -75,4 +75,6 @@ def end_sessions_of_key(*, session: Session, key_id: int, at: datetime | None = 
 
 def purge_sessions(*, session: Session, now: datetime | None = None) -> None:
     """Delete sessions that expired (they can never be honoured again). No commit."""
-    session.execute(delete(DashboardSession).where(DashboardSession.expires_at <= (now or utcnow())))
+    session.execute(
+        delete(DashboardSession).where(DashboardSession.expires_at <= (now or utcnow()))
+    )

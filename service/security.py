@@ -38,8 +38,8 @@ Audit
 every new model version (``version.create``), champion change (``champion.change``), refit run
 (``refit.start``) and refit status change (``refit.finish``) appends an ``audit_event`` row
 with the acting key id. Key creation and revocation are recorded by :func:`issue_key` and
-:func:`revoke` (``key.create``, ``key.revoke``). Revoking a key also ends every dashboard session signed in
-with it (:mod:`service.api.dashboard_session`).
+:func:`revoke` (``key.create``, ``key.revoke``). Revoking a key also ends every dashboard
+session signed in with it (:mod:`service.api.dashboard_session`).
 """
 
 from __future__ import annotations

@@ -86,7 +86,11 @@ class SecurityHeadersMiddleware:
 
 
 class BodyTimeoutMiddleware:
-    """408 and ``Connection: close`` when the next piece of a body takes over ``timeout`` s."""
+    """408 and ``Connection: close`` when the next piece of a body takes over ``timeout`` s.
+
+    Whatever the app answers to the body it never got (the limits middleware's error, or the
+    400 FastAPI makes of a broken form) is dropped and replaced by the 408.
+    """
 
     def __init__(self, app: ASGIApp, timeout: float) -> None:
         self.app = app
@@ -98,42 +102,62 @@ class BodyTimeoutMiddleware:
             return
         timeout = self.timeout
         body_done = False
-        timed_out = False
         started = False
+        stalled: RequestTimeoutError | None = None
 
         async def timed_receive() -> Message:
-            nonlocal body_done, timed_out
+            nonlocal body_done, stalled
             if body_done:
                 return await receive()  # waiting for a disconnect: no deadline
             try:
                 async with asyncio.timeout(timeout):
                     message = await receive()
             except TimeoutError:
-                timed_out = True
-                raise RequestTimeoutError(
-                    f"the request body stalled: nothing arrived for {timeout:g} seconds",
-                    field="body",
-                    value=None,
-                    remedy="send the whole body without pausing (an operator may raise "
-                    "RISKFIT_BODY_TIMEOUT_SECONDS for slow links)",
-                    details={"timeout_seconds": timeout},
-                ) from None
+                error = _stalled(timeout)
+                if not started:
+                    stalled = error
+                raise error from None
             if message["type"] != "http.request" or not message.get("more_body", False):
                 body_done = True
             return message
 
-        async def closing_send(message: Message) -> None:
+        async def guarded_send(message: Message) -> None:
             nonlocal started
+            if stalled is not None:
+                return  # the app's answer to a body it never got: the 408 below replaces it
             if message["type"] == "http.response.start":
                 started = True
-                if timed_out:  # the rest of the body is never read: do not reuse the socket
-                    headers = [*message.get("headers", ()), (b"connection", b"close")]
-                    message = {**message, "headers": headers}
             await send(message)
 
         try:
-            await self.app(scope, timed_receive, closing_send)
-        except RequestTimeoutError as exc:
-            if started:
+            await self.app(scope, timed_receive, guarded_send)
+        except RequestTimeoutError:
+            if stalled is None:
                 raise
-            await _answer(closing_send, exc)
+        if stalled is not None:
+            await _answer(_closing(send), stalled)
+
+
+def _stalled(timeout: float) -> RequestTimeoutError:
+    return RequestTimeoutError(
+        f"the request body stalled: nothing arrived for {timeout:g} seconds",
+        field="body",
+        value=None,
+        remedy="send the whole body without pausing (an operator may raise "
+        "RISKFIT_BODY_TIMEOUT_SECONDS for slow links)",
+        details={"timeout_seconds": timeout},
+    )
+
+
+def _closing(send: Send) -> Send:
+    """``send`` that marks the answer ``Connection: close`` (the rest of the body is unread)."""
+
+    async def closing_send(message: Message) -> None:
+        if message["type"] == "http.response.start":
+            message = {
+                **message,
+                "headers": [*message.get("headers", ()), (b"connection", b"close")],
+            }
+        await send(message)
+
+    return closing_send

@@ -173,9 +173,7 @@ def dashboard_index(request: Request, session: SessionDep, who: Access) -> HTMLR
         item = model_public(session, m)
         item["open_alerts"] = len(list_alerts(session=session, model=m, open_only=True))
         models.append(item)
-    page = index_page(
-        models, signed_in_as=_who(who, request), csrf_token=_sign_out_token(request)
-    )
+    page = index_page(models, signed_in_as=_who(who, request), csrf_token=_sign_out_token(request))
     return HTMLResponse(page)
 
 
