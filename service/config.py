@@ -56,7 +56,7 @@ class Settings(BaseSettings):
         "https (as seen through a trusted proxy's X-Forwarded-Proto), always, or never.",
     )
     trusted_proxies: str = Field(
-        "127.0.0.1",
+        "127.0.0.1,::1",
         description="Comma-separated addresses or CIDR ranges of reverse proxies whose "
         "X-Forwarded-Proto/For headers `riskfit serve` believes (uvicorn forwarded_allow_ips); "
         "'*' trusts every peer (only when nothing else can reach the port).",

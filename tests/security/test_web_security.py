@@ -8,13 +8,10 @@ import contextlib
 import hashlib
 import secrets
 import socket
-import threading
 import time
-from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-import uvicorn
 
 from models_store.keys import create_key
 from service.app import create_app
@@ -23,6 +20,7 @@ from service.security import LEGACY_KEY_PREFIXES, hash_key
 from service.web_security import DASHBOARD_CSP
 from tests.api._data import NEW_RECORDS
 from tests.api.conftest import ApiClient
+from tests.security._live import live_server
 from tests.security.conftest import MODEL, bearer
 from tests.store.dbfixtures import sqlite_url
 
@@ -123,29 +121,6 @@ def test_new_keys_have_our_own_prefix_and_old_prefix_keys_still_work(
 
 
 # --- stalled request body ---------------------------------------------------------------------
-
-
-@contextlib.contextmanager
-def live_server(settings: Settings) -> Iterator[int]:
-    """uvicorn on 127.0.0.1, a free port, in a thread; yields the port."""
-    sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
-    sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
-    sock.bind(("127.0.0.1", 0))
-    port = sock.getsockname()[1]
-    config = uvicorn.Config(create_app(settings), log_level="warning", lifespan="on")
-    server = uvicorn.Server(config)
-    thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]}, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 20
-    while not server.started:
-        assert time.monotonic() < deadline and thread.is_alive(), "server did not start"
-        time.sleep(0.05)
-    try:
-        yield port
-    finally:
-        server.should_exit = True
-        thread.join(10)
-        sock.close()
 
 
 def _stall(port: int, head: bytes, partial: bytes, wait: float) -> tuple[bytes, float, bool]:
