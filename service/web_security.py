@@ -25,6 +25,7 @@ The same wait between successive reads is what reverse proxies call a client bod
 from __future__ import annotations
 
 import asyncio
+from typing import Any
 
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
@@ -85,6 +86,44 @@ class SecurityHeadersMiddleware:
         await self.app(scope, receive, send_with_headers)
 
 
+class _Watchdog:
+    """Cancels request tasks that wait for a body piece past their deadline.
+
+    A receive in progress costs a dict entry (no timer per call: an ``asyncio.timeout`` per
+    ``receive`` cost more than the rest of the middleware). One task per event loop wakes
+    every ``period`` seconds while anything waits, and stops when nothing has for a period.
+    """
+
+    def __init__(self, timeout: float) -> None:
+        self.timeout = timeout
+        self.period = min(1.0, timeout / 4)
+        self.waiting: dict[object, tuple[float, asyncio.Task[Any]]] = {}
+        self.expired: set[object] = set()
+        self._task: asyncio.Task[None] | None = None
+
+    def watch(self, key: object, task: asyncio.Task[Any], loop: asyncio.AbstractEventLoop) -> None:
+        self.waiting[key] = (loop.time() + self.timeout, task)
+        if self._task is None or self._task.done() or self._task.get_loop() is not loop:
+            self._task = loop.create_task(self._run(loop))
+
+    async def _run(self, loop: asyncio.AbstractEventLoop) -> None:
+        idle = False
+        while True:
+            await asyncio.sleep(self.period)
+            if not self.waiting:
+                if idle:
+                    return
+                idle = True
+                continue
+            idle = False
+            now = loop.time()
+            for key, (deadline, task) in list(self.waiting.items()):
+                if now >= deadline and task.get_loop() is loop:
+                    self.waiting.pop(key, None)
+                    self.expired.add(key)
+                    task.cancel()
+
+
 class BodyTimeoutMiddleware:
     """408 and ``Connection: close`` when the next piece of a body takes over ``timeout`` s.
 
@@ -95,12 +134,13 @@ class BodyTimeoutMiddleware:
     def __init__(self, app: ASGIApp, timeout: float) -> None:
         self.app = app
         self.timeout = timeout
+        self.watchdog = _Watchdog(timeout)
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http" or scope["method"] not in _BODY_METHODS:
             await self.app(scope, receive, send)
             return
-        timeout = self.timeout
+        watchdog = self.watchdog
         body_done = False
         started = False
         stalled: RequestTimeoutError | None = None
@@ -109,14 +149,23 @@ class BodyTimeoutMiddleware:
             nonlocal body_done, stalled
             if body_done:
                 return await receive()  # waiting for a disconnect: no deadline
+            key = object()
+            task = asyncio.current_task()
+            if task is not None:
+                watchdog.watch(key, task, asyncio.get_running_loop())
             try:
-                async with asyncio.timeout(timeout):
-                    message = await receive()
-            except TimeoutError:
-                error = _stalled(timeout)
+                message = await receive()
+            except asyncio.CancelledError:
+                if key not in watchdog.expired or task is None:
+                    raise
+                watchdog.expired.discard(key)
+                task.uncancel()
+                error = _stalled(watchdog.timeout)
                 if not started:
                     stalled = error
                 raise error from None
+            finally:
+                watchdog.waiting.pop(key, None)
             if message["type"] != "http.request" or not message.get("more_body", False):
                 body_done = True
             return message
