@@ -90,8 +90,8 @@ class _Watchdog:
     """Cancels request tasks that wait for a body piece past their deadline.
 
     A receive in progress costs a dict entry (no timer per call: an ``asyncio.timeout`` per
-    ``receive`` cost more than the rest of the middleware). One task per event loop wakes
-    every ``period`` seconds while anything waits, and stops when nothing has for a period.
+    ``receive`` cost more than the rest of the middleware). One timer callback per event loop
+    looks every ``period`` seconds while anything waits, and is not renewed once nothing does.
     """
 
     def __init__(self, timeout: float) -> None:
@@ -99,29 +99,29 @@ class _Watchdog:
         self.period = min(1.0, timeout / 4)
         self.waiting: dict[object, tuple[float, asyncio.Task[Any]]] = {}
         self.expired: set[object] = set()
-        self._task: asyncio.Task[None] | None = None
+        self._ticking: asyncio.AbstractEventLoop | None = None
 
     def watch(self, key: object, task: asyncio.Task[Any], loop: asyncio.AbstractEventLoop) -> None:
         self.waiting[key] = (loop.time() + self.timeout, task)
-        if self._task is None or self._task.done() or self._task.get_loop() is not loop:
-            self._task = loop.create_task(self._run(loop))
+        if self._ticking is not loop:
+            self._ticking = loop
+            loop.call_later(self.period, self._tick, loop)
 
-    async def _run(self, loop: asyncio.AbstractEventLoop) -> None:
-        idle = False
-        while True:
-            await asyncio.sleep(self.period)
-            if not self.waiting:
-                if idle:
-                    return
-                idle = True
+    def _tick(self, loop: asyncio.AbstractEventLoop) -> None:
+        now = loop.time()
+        mine = 0
+        for key, (deadline, task) in list(self.waiting.items()):
+            if task.get_loop() is not loop:
                 continue
-            idle = False
-            now = loop.time()
-            for key, (deadline, task) in list(self.waiting.items()):
-                if now >= deadline and task.get_loop() is loop:
-                    self.waiting.pop(key, None)
-                    self.expired.add(key)
-                    task.cancel()
+            mine += 1
+            if now >= deadline:
+                self.waiting.pop(key, None)
+                self.expired.add(key)
+                task.cancel()
+        if mine and self._ticking is loop:
+            loop.call_later(self.period, self._tick, loop)
+        elif self._ticking is loop:
+            self._ticking = None
 
 
 class BodyTimeoutMiddleware:

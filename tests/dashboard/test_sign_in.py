@@ -18,14 +18,13 @@ from models_store.orm import DashboardSession
 from service.api.dashboard_session import COOKIE, CSRF_COOKIE, token_hash
 from service.app import create_app
 from service.cli.keys import create_key_in_store
-from tests.api.conftest import ApiClient
+from tests.api.conftest import ApiClient, database_url  # noqa: F401 (fixture: SQLite, PostgreSQL)
 from tests.dashboard._fill import monitor_settings
 
 HTML = {"Accept": "text/html,application/xhtml+xml,*/*;q=0.8"}  # what a browser sends
 
 
-def _api(tmp_path: Path, **overrides: Any) -> tuple[dict[str, str], ApiClient]:
-    url = f"sqlite:///{tmp_path / 's.db'}"
+def _api(url: str, **overrides: Any) -> tuple[dict[str, str], ApiClient]:
     keys = {
         "scorer": create_key_in_store(url, role="scorer", name="viewer").key,
         "admin": create_key_in_store(url, role="admin", name="boss").key,
@@ -34,8 +33,8 @@ def _api(tmp_path: Path, **overrides: Any) -> tuple[dict[str, str], ApiClient]:
 
 
 @pytest.fixture
-def keys_and_api(tmp_path: Path) -> Iterator[tuple[dict[str, str], ApiClient]]:
-    keys, api = _api(tmp_path)
+def keys_and_api(database_url: str) -> Iterator[tuple[dict[str, str], ApiClient]]:  # noqa: F811
+    keys, api = _api(database_url)
     try:
         yield keys, api
     finally:
@@ -210,7 +209,7 @@ def test_expired_unknown_and_revoked_key_sessions_are_refused(
     ],
 )
 def test_cookie_secure_setting(tmp_path: Path, mode: str, base: str, secure: bool) -> None:
-    keys, api = _api(tmp_path, cookie_secure=mode)
+    keys, api = _api(f"sqlite:///{tmp_path / 's.db'}", cookie_secure=mode)
     try:
         form = api.get(f"{base}/dashboard/sign-in")
         assert ("Secure" in form.headers["set-cookie"]) is secure  # the csrf cookie
