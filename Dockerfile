@@ -3,6 +3,11 @@
 #   docker run -p 127.0.0.1:8000:8000 -v riskfit-data:/data riskfit:0.1.0
 # The store defaults to an SQLite file on the /data volume; set RISKFIT_DATABASE_URL to a
 # postgresql+psycopg:// URL to use PostgreSQL instead (see deploy/compose.yaml).
+# Behind a TLS proxy or ingress (deploy/README.md, "Behind a reverse proxy"): set
+# RISKFIT_TRUSTED_PROXIES to the proxy's address or CIDR range (the container binds 0.0.0.0,
+# so the default 127.0.0.1 is never the proxy) and RISKFIT_COOKIE_SECURE=always.
+# /metrics needs an API key (RISKFIT_METRICS_ACCESS=key); a stalled request body is cut after
+# RISKFIT_BODY_TIMEOUT_SECONDS, an idle keep-alive connection after RISKFIT_KEEP_ALIVE_SECONDS.
 
 FROM python:3.11-slim AS build
 ENV PIP_NO_CACHE_DIR=1 PIP_DISABLE_PIP_VERSION_CHECK=1
@@ -18,7 +23,12 @@ ENV PYTHONDONTWRITEBYTECODE=1 \
     PIP_NO_CACHE_DIR=1 \
     PIP_DISABLE_PIP_VERSION_CHECK=1 \
     MPLCONFIGDIR=/tmp/matplotlib \
-    RISKFIT_DATABASE_URL=sqlite:////data/riskfit.db
+    RISKFIT_DATABASE_URL=sqlite:////data/riskfit.db \
+    RISKFIT_TRUSTED_PROXIES=127.0.0.1,::1 \
+    RISKFIT_COOKIE_SECURE=auto \
+    RISKFIT_METRICS_ACCESS=key \
+    RISKFIT_BODY_TIMEOUT_SECONDS=30 \
+    RISKFIT_KEEP_ALIVE_SECONDS=5
 COPY --from=build /wheels /wheels
 # the postgres extra brings the psycopg driver, so one image serves SQLite and PostgreSQL
 RUN sh -c 'python -m pip install "$(ls /wheels/riskfit-*.whl)[postgres]"' \

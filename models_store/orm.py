@@ -58,6 +58,7 @@ __all__ = [
     "AuditEvent",
     "Base",
     "ChampionChange",
+    "DashboardSession",
     "ImmutableVersionError",
     "ModelVersion",
     "Outcome",
@@ -121,6 +122,24 @@ class ApiKey(Base):
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     revoked_at: Mapped[datetime | None]
     last_used_at: Mapped[datetime | None]
+
+
+class DashboardSession(Base):
+    """A dashboard sign-in: the cookie holds a random token, the row only its SHA-256.
+
+    A session is honoured while unexpired, not revoked (sign-out sets ``revoked_at``) and while
+    its key is not revoked, so revoking a key ends every session signed in with it. A row is
+    the same on SQLite and PostgreSQL and is seen by every server process at once.
+    """
+
+    __tablename__ = "dashboard_session"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    token_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    key_id: Mapped[int] = mapped_column(ForeignKey("api_key.id"), index=True)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    expires_at: Mapped[datetime]
+    revoked_at: Mapped[datetime | None]
 
 
 class ModelVersion(Base):

@@ -30,6 +30,7 @@ from service.score_append_path import appends_to
 from service.score_log_channel import ScoreLogChannel
 from service.scoring import VersionCache
 from service.security import authenticate_first
+from service.web_security import BodyTimeoutMiddleware, SecurityHeadersMiddleware
 
 __all__ = ["ROUTERS", "create_app"]
 
@@ -115,4 +116,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         app.include_router(router, dependencies=[Depends(authenticate_first)])
     app.add_middleware(LimitsMiddleware, settings=settings)
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
+    # web security (service/web_security.py): headers by path prefix; a stalled body is a 408
+    app.add_middleware(SecurityHeadersMiddleware)
+    app.add_middleware(BodyTimeoutMiddleware, timeout=settings.body_timeout_seconds)
     return app

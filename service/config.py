@@ -7,6 +7,7 @@ their own :class:`Settings` instance to ``create_app(settings=...)``.
 from __future__ import annotations
 
 from functools import lru_cache
+from typing import Literal
 
 from pydantic import Field, SecretStr, field_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
@@ -42,11 +43,44 @@ class Settings(BaseSettings):
     )
     dashboard_session_secret: SecretStr | None = Field(
         None,
-        description="Secret signing dashboard sign-in cookies (HMAC-SHA256); unset: random per "
-        "process, so set it when serving with more than one worker.",
+        description="No longer used: dashboard sign-ins are rows in the store (revocable); "
+        "accepted and ignored so existing deployments keep starting.",
     )
     dashboard_session_hours: float = Field(
         8.0, gt=0.0, le=24 * 30, description="How long a dashboard sign-in lasts (hours)."
+    )
+    # --- web security (service/api/dashboard_session.py, service/web_security.py) ---
+    cookie_secure: Literal["auto", "always", "never"] = Field(
+        "auto",
+        description="`Secure` flag of the dashboard cookies: auto = when the request came over "
+        "https (as seen through a trusted proxy's X-Forwarded-Proto), always, or never.",
+    )
+    trusted_proxies: str = Field(
+        "127.0.0.1,::1",
+        description="Comma-separated addresses or CIDR ranges of reverse proxies whose "
+        "X-Forwarded-Proto/For headers `riskfit serve` believes (uvicorn forwarded_allow_ips); "
+        "'*' trusts every peer (only when nothing else can reach the port).",
+    )
+    metrics_access: Literal["open", "key"] = Field(
+        "key",
+        description="GET /metrics: key = needs an API key (any role), like every other route; "
+        "open = no key (only where the port is reachable by the scraper alone).",
+    )
+    body_timeout_seconds: float = Field(
+        30.0,
+        gt=0.0,
+        le=3600.0,
+        description="Longest wait for the next piece of a request body; a client that stalls "
+        "longer gets 408 and the connection is closed.",
+    )
+    keep_alive_seconds: int = Field(
+        5, ge=1, le=300, description="`riskfit serve`: idle keep-alive connections close after."
+    )
+    limit_concurrency: int | None = Field(
+        None,
+        ge=1,
+        description="`riskfit serve`: most concurrent connections per process before 503 "
+        "(unset: no limit).",
     )
     # --- limits (service/limits.py) ---
     max_body_bytes: int = Field(

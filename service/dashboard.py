@@ -113,14 +113,18 @@ def _render(template: str, **context: Any) -> str:
     return _env().get_template(template).render(cautions=CAUTIONS, version=__version__, **context)
 
 
-def index_page(models: list[dict[str, Any]], signed_in_as: str | None = None) -> str:
-    """The list of models with their champion and open alerts."""
-    return _render("index.html", models=models, signed_in_as=signed_in_as)
+def index_page(
+    models: list[dict[str, Any]], signed_in_as: str | None = None, csrf_token: str = ""
+) -> str:
+    """The list of models with their champion and open alerts (``csrf_token``: sign-out form)."""
+    return _render("index.html", models=models, signed_in_as=signed_in_as, csrf_token=csrf_token)
 
 
-def sign_in_page(*, next_path: str, error: str | None = None) -> str:
+def sign_in_page(*, next_path: str, error: str | None = None, csrf_token: str = "") -> str:
     """The sign-in form: one API key field; ``error`` says why the last attempt failed."""
-    return _render("sign_in.html", next_path=next_path, error=error, signed_in_as=None)
+    return _render(
+        "sign_in.html", next_path=next_path, error=error, signed_in_as=None, csrf_token=csrf_token
+    )
 
 
 def model_page(
@@ -133,8 +137,9 @@ def model_page(
     alerts: dict[str, Any],
     thresholds: dict[str, Any],
     signed_in_as: str | None = None,
+    csrf_token: str = "",
 ) -> str:
-    """One model's page (see module docstring)."""
+    """One model's page (see module docstring); ``csrf_token`` goes in the sign-out form."""
     plots = {
         "reliability": inline_svg(render(reliability_figure(report), "svg")),
         "measures": inline_svg(render(drift_figure(drift, thresholds), "svg")),
@@ -151,4 +156,5 @@ def model_page(
         alerts=alerts,
         plots=plots,
         signed_in_as=signed_in_as,
+        csrf_token=csrf_token,
     )

@@ -60,6 +60,7 @@ __all__ = [
     "PermissionDeniedError",
     "RankDeficientError",
     "RefitInProgressError",
+    "RequestTimeoutError",
     "RiskfitError",
     "ScoreNotFoundError",
     "SeparationError",
@@ -276,6 +277,12 @@ class AuthenticationError(RiskfitError):
 
 class PermissionDeniedError(RiskfitError):
     code = "forbidden"
+
+
+class RequestTimeoutError(RiskfitError):
+    """The client stopped sending its request body (maps to 408; the connection is closed)."""
+
+    code = "request_timeout"
 
 
 # --- infrastructure ---------------------------------------------------------------------------

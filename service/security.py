@@ -2,8 +2,11 @@
 
 Keys
 ----
-A key is ``rk_`` followed by :func:`secrets.token_urlsafe` of :data:`KEY_BYTES` random bytes
-(256 bits). It is shown once, when it is created; the store keeps only
+A key is ``rfk_`` (:data:`KEY_PREFIX`) followed by :func:`secrets.token_urlsafe` of
+:data:`KEY_BYTES` random bytes (256 bits). Keys issued before the prefix changed start with
+``rk_`` (:data:`LEGACY_KEY_PREFIXES`, the prefix a well-known payments API gives its
+restricted keys, so secret scanners confused the two); they keep working, since a key is found
+by its hash, never by its prefix. It is shown once, when it is created; the store keeps only
 
 * ``key_hash`` = hex SHA-256 of the key, or hex HMAC-SHA256 keyed by the server secret
   ``RISKFIT_API_KEY_PEPPER`` when one is set (then a stolen database alone cannot be used to
@@ -35,7 +38,8 @@ Audit
 every new model version (``version.create``), champion change (``champion.change``), refit run
 (``refit.start``) and refit status change (``refit.finish``) appends an ``audit_event`` row
 with the acting key id. Key creation and revocation are recorded by :func:`issue_key` and
-:func:`revoke` (``key.create``, ``key.revoke``).
+:func:`revoke` (``key.create``, ``key.revoke``). Revoking a key also ends every dashboard
+session signed in with it (:mod:`service.api.dashboard_session`).
 """
 
 from __future__ import annotations
@@ -53,6 +57,7 @@ from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 
 from models_store.audit import record
+from models_store.dashboard_sessions import end_sessions_of_key
 from models_store.keys import create_key, find_key_by_hash, get_key, revoke_key, touch_key
 from models_store.orm import ApiKey
 from service.api.deps import ANONYMOUS, ROLE_RANK, Principal
@@ -69,6 +74,7 @@ from service.key_cache import KEY_CACHE_TTL, KeyCache, _cache_of, _forget_everyw
 __all__ = [
     "KEY_CACHE_TTL",
     "KEY_PREFIX",
+    "LEGACY_KEY_PREFIXES",
     "IssuedKey",
     "KeyCache",
     "admit",
@@ -84,7 +90,8 @@ __all__ = [
     "revoke",
 ]
 
-KEY_PREFIX = "rk_"
+KEY_PREFIX = "rfk_"
+LEGACY_KEY_PREFIXES = ("rk_",)  # issued before 0.1.x; still accepted (looked up by hash)
 KEY_BYTES = 32
 PREFIX_LEN = 10
 _CREATE_HINT = "an admin creates one with `riskfit keys create --role scorer` or POST /api-keys"
@@ -102,7 +109,7 @@ class IssuedKey:
 
 
 def new_key() -> str:
-    """A fresh random key: ``rk_`` + 43 URL-safe characters (256 random bits)."""
+    """A fresh random key: ``rfk_`` + 43 URL-safe characters (256 random bits)."""
     return KEY_PREFIX + secrets.token_urlsafe(KEY_BYTES)
 
 
@@ -157,6 +164,7 @@ def revoke(*, session: Session, key_id: int, by_key_id: int | None = None) -> Ap
     was_active = existing.revoked_at is None
     row = revoke_key(session=session, key_id=key_id)
     assert row is not None
+    end_sessions_of_key(session=session, key_id=key_id)  # its dashboard sign-ins end too
     digest = row.key_hash
     _forget_everywhere(digest)  # this process's caches; other processes: KEY_CACHE_TTL
     event.listen(session, "after_commit", lambda _s: _forget_everywhere(digest), once=True)

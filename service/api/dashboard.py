@@ -25,8 +25,14 @@ from service.api.champion import champion_public
 from service.api.dashboard_session import (
     COOKIE,
     SIGN_IN_PATH,
+    check_origin,
+    check_sign_in_token,
+    cookie_secure,
     dashboard_access,
+    end_signed_in_session,
     safe_next,
+    set_csrf_cookie,
+    sign_in_token,
     signed_in_redirect,
 )
 from service.api.deps import ModelName, Principal, SessionDep, SettingsDep
@@ -65,7 +71,22 @@ Access = Annotated[Principal, Depends(dashboard_access)]
 
 def _who(principal: Principal, request: Request) -> str | None:
     """The signed-in key's name when the page was reached through the session cookie."""
-    return principal.name if COOKIE in request.cookies and principal.key_id else None
+    signed_in = getattr(request.state, "riskfit_sign_out_token", None) is not None
+    return principal.name if signed_in and principal.key_id else None
+
+
+def _sign_out_token(request: Request) -> str:
+    """The sign-out form's token of the session that opened this page ("" without one)."""
+    return str(getattr(request.state, "riskfit_sign_out_token", ""))
+
+
+def _sign_in_form(request: Request, next_path: str, error: str | None, status: int) -> HTMLResponse:
+    token, new = sign_in_token(request)
+    page = sign_in_page(next_path=safe_next(next_path), error=error, csrf_token=token)
+    response = HTMLResponse(page, status_code=status)
+    if new:
+        set_csrf_cookie(request, response, token)
+    return response
 
 
 @router.get("/static/riskfit.css", include_in_schema=False)
@@ -79,8 +100,8 @@ def stylesheet() -> FileResponse:
     summary="Dashboard: the sign-in form (API key)",
     responses=JSON_ERRORS,
 )
-def sign_in_form(next: str | None = None) -> HTMLResponse:
-    return HTMLResponse(sign_in_page(next_path=safe_next(next)))
+def sign_in_form(request: Request, next: str | None = None) -> HTMLResponse:
+    return _sign_in_form(request, safe_next(next), None, 200)
 
 
 @router.post(
@@ -90,6 +111,7 @@ def sign_in_form(next: str | None = None) -> HTMLResponse:
     responses={
         **JSON_ERRORS,
         303: {"description": "Signed in: the session cookie is set."},
+        403: _json_error("Cross-site request: another Origin, or no matching csrf_token."),
         401: {
             "description": "Unknown or revoked key: the form again, with the reason.",
             "content": {"text/html": {"schema": {"type": "string"}}},
@@ -101,27 +123,41 @@ def sign_in(
     session: SessionDep,
     api_key: Annotated[str, Form(min_length=1, max_length=200, description="An API key.")],
     next: Annotated[str | None, Form(max_length=200)] = None,
+    csrf_token: Annotated[str | None, Form(max_length=200)] = None,
 ) -> Response:
+    check_origin(request)
+    check_sign_in_token(request, csrf_token)
     scope = {**request.scope, "state": {}}
     scope["headers"] = [(b"authorization", f"Bearer {api_key.strip()}".encode())]
     try:
         principal = authorize(Request(scope, request.receive), session, "scorer")
     except RiskfitError as exc:  # 401 unknown / revoked key; the key is never echoed
-        page = sign_in_page(next_path=safe_next(next), error=f"{exc.message}. {exc.remedy}")
-        return HTMLResponse(page, status_code=401)
-    return signed_in_redirect(request, principal, next or "/dashboard")
+        return _sign_in_form(request, safe_next(next), f"{exc.message}. {exc.remedy}", 401)
+    return signed_in_redirect(request, session, principal, next or "/dashboard")
 
 
 @router.post(
     "/sign-out",
-    summary="Dashboard: sign out (clears the session cookie, 303 to the sign-in page)",
+    summary="Dashboard: sign out (ends the session, clears its cookie, 303 to the sign-in page)",
     response_class=RedirectResponse,
     status_code=303,
-    responses={303: {"description": "Signed out."}, 413: JSON_ERRORS[413]},
+    responses={
+        303: {"description": "Signed out: the session is ended in the store."},
+        403: JSON_ERRORS[403],
+        413: JSON_ERRORS[413],
+        422: JSON_ERRORS[422],
+    },
 )
-def sign_out() -> RedirectResponse:
+def sign_out(
+    request: Request,
+    session: SessionDep,
+    csrf_token: Annotated[str | None, Form(max_length=200)] = None,
+) -> RedirectResponse:
+    end_signed_in_session(request, session, csrf_token)
     response = RedirectResponse(SIGN_IN_PATH, status_code=303)
-    response.delete_cookie(COOKIE, path="/dashboard", httponly=True, samesite="strict")
+    response.delete_cookie(
+        COOKIE, path="/dashboard", httponly=True, samesite="strict", secure=cookie_secure(request)
+    )
     return response
 
 
@@ -137,7 +173,8 @@ def dashboard_index(request: Request, session: SessionDep, who: Access) -> HTMLR
         item = model_public(session, m)
         item["open_alerts"] = len(list_alerts(session=session, model=m, open_only=True))
         models.append(item)
-    return HTMLResponse(index_page(models, signed_in_as=_who(who, request)))
+    page = index_page(models, signed_in_as=_who(who, request), csrf_token=_sign_out_token(request))
+    return HTMLResponse(page)
 
 
 @router.get(
@@ -183,5 +220,6 @@ def dashboard_model(
         alerts=alerts_public(session, row, settings, open_only=False, limit=200),
         thresholds=thresholds(for_model(settings, row)),
         signed_in_as=_who(who, request),
+        csrf_token=_sign_out_token(request),
     )
     return HTMLResponse(page)

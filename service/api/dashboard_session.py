@@ -4,100 +4,164 @@ Flow: ``GET /dashboard/sign-in`` shows a form; ``POST /dashboard/sign-in`` check
 :func:`service.security.authorize` (the same check as every API route, role ``scorer`` or
 higher) and answers 303 to the dashboard with a cookie holding a *session token*, never the
 key. Dashboard routes then accept either that cookie or the usual key header
-(:func:`dashboard_access`); ``POST /dashboard/sign-out`` clears the cookie.
+(:func:`dashboard_access`); ``POST /dashboard/sign-out`` ends the session and clears the cookie.
 
-Session token: ``<key id>.<expiry, epoch seconds>.<signature>`` where the signature is
-base64url(HMAC-SHA256(secret, ``"riskfit-dashboard|<key id>|<expiry>"``)). The secret is the
-setting ``RISKFIT_DASHBOARD_SESSION_SECRET``, or, when unset, 32 random bytes drawn once per
-app (sign-ins then end when the server restarts, and each of several ``--workers`` has its
-own secret: set the setting for more than one worker). A token is honoured only while
-unexpired (``dashboard_session_hours``, default 8) and while its key is not revoked (the
-key's role is read from the store on every request, so revocation ends the session at once).
+Sessions live in the store (table ``dashboard_session``, :mod:`models_store.dashboard_sessions`):
+the cookie holds 256 random bits (:func:`secrets.token_urlsafe`), the row only their SHA-256,
+the key id and the expiry (``dashboard_session_hours``, default 8). A session is honoured only
+while unexpired, not signed out and while its key is not revoked; every request reads the row
+(one indexed statement), so sign-out and key revocation end it at once in every server
+process, on SQLite and PostgreSQL alike.
 
-Cookie: ``HttpOnly``, ``SameSite=Strict``, ``Path=/dashboard``, ``Secure`` when the request
-came over https. Without credentials a request that accepts ``text/html`` (a browser) is sent
-to the sign-in page (303); any other client gets the usual 401 JSON error.
+Cross-site request forgery (both forms):
+
+* Origin check: a POST whose ``Origin`` (or, without one, ``Referer``) names another host than
+  the request's own ``Host`` header is refused (403). Clients that send neither (curl, tests)
+  pass this check.
+* Tokens: the sign-in form carries ``csrf_token``, which must equal the ``riskfit_csrf``
+  cookie set with the form (a double-submit token: another site can neither read the cookie
+  nor, with ``SameSite=Strict``, make the browser send it). The sign-out form carries a token
+  derived from the session token (SHA-256 of a context string and the token), which only a
+  page rendered for that session knows.
+
+Cookies: ``HttpOnly``, ``SameSite=Strict``, ``Path=/dashboard``; ``Secure`` as the setting
+``cookie_secure`` says (auto: when the request came over https, as seen through a trusted
+proxy). Without credentials a request that accepts ``text/html`` (a browser) is sent to the
+sign-in page (303); any other client gets the usual 401 JSON error.
 """
 
 from __future__ import annotations
 
-import base64
 import hashlib
 import hmac
 import re
 import secrets
-import threading
-import time
-from urllib.parse import quote
+from datetime import timedelta
+from urllib.parse import quote, urlsplit
 
 from fastapi import HTTPException, Request
-from fastapi.responses import RedirectResponse
+from fastapi.responses import RedirectResponse, Response
+from sqlalchemy.orm import Session
 
-from models_store.keys import get_key
+from models_store._types import utcnow
+from models_store.dashboard_sessions import create_session, end_session, live_session
 from service.api.deps import Principal, SessionDep
 from service.config import Settings
+from service.errors import PermissionDeniedError
 from service.security import authorize, install_audit
 
 __all__ = [
     "COOKIE",
+    "CSRF_COOKIE",
     "SIGN_IN_PATH",
+    "check_origin",
+    "check_sign_in_token",
     "dashboard_access",
+    "end_signed_in_session",
     "safe_next",
-    "sign_token",
+    "sign_in_token",
+    "sign_out_token",
     "signed_in_redirect",
-    "verify_token",
+    "token_hash",
 ]
 
 COOKIE = "riskfit_dashboard"
+CSRF_COOKIE = "riskfit_csrf"
 SIGN_IN_PATH = "/dashboard/sign-in"
-_CONTEXT = b"riskfit-dashboard|"
 _NEXT = re.compile(r"^/dashboard(/[A-Za-z0-9][A-Za-z0-9._-]{0,99})?$")
-_lock = threading.Lock()
+_TOKEN_BYTES = 32
+_MAX_TOKEN = 200
 
 
-def _secret(request: Request) -> bytes:
+def token_hash(token: str) -> str:
+    """Hex SHA-256 of a session token: what the store keeps."""
+    return hashlib.sha256(token.encode("utf-8", "surrogatepass")).hexdigest()
+
+
+def sign_out_token(session_token: str) -> str:
+    """The sign-out form's CSRF token of a session (derived: nothing more is stored)."""
+    data = b"riskfit-sign-out|" + session_token.encode("utf-8", "surrogatepass")
+    return hashlib.sha256(data).hexdigest()
+
+
+def cookie_secure(request: Request) -> bool:
+    """Whether cookies set in answer to ``request`` carry ``Secure`` (setting ``cookie_secure``)."""
     settings: Settings = request.app.state.settings
-    if settings.dashboard_session_secret is not None:
-        return settings.dashboard_session_secret.get_secret_value().encode()
-    with _lock:
-        secret: bytes | None = getattr(request.app.state, "dashboard_secret", None)
-        if secret is None:
-            secret = request.app.state.dashboard_secret = secrets.token_bytes(32)
-    return secret
+    if settings.cookie_secure == "auto":
+        return request.url.scheme == "https"
+    return settings.cookie_secure == "always"
 
 
-def _signature(secret: bytes, key_id: int, expires: int) -> str:
-    mac = hmac.new(secret, _CONTEXT + f"{key_id}|{expires}".encode(), hashlib.sha256)
-    return base64.urlsafe_b64encode(mac.digest()).rstrip(b"=").decode()
+def _forbidden(message: str, field: str, value: str | None, remedy: str) -> PermissionDeniedError:
+    return PermissionDeniedError(message, field=field, value=value, remedy=remedy)
 
 
-def sign_token(secret: bytes, key_id: int, expires: int) -> str:
-    """The session token of key ``key_id`` valid until ``expires`` (epoch seconds)."""
-    return f"{key_id}.{expires}.{_signature(secret, key_id, expires)}"
+def check_origin(request: Request) -> None:
+    """403 unless the request's ``Origin`` (else ``Referer``), if any, is its own host."""
+    host = request.headers.get("host", "").lower()
+    for header in ("origin", "referer"):
+        value = request.headers.get(header)
+        if value is None:
+            continue
+        try:
+            netloc = urlsplit(value).netloc.lower()
+        except ValueError:
+            netloc = ""
+        if not netloc or netloc != host:
+            raise _forbidden(
+                f"{request.method} {request.url.path} came from another site ({header} "
+                f"{value[:100]!r}, this host {host[:100]!r})",
+                header.capitalize(),
+                value[:100],
+                "use the form on this dashboard's own pages; behind a reverse proxy, pass "
+                "the original Host header through (e.g. nginx: proxy_set_header Host $host)",
+            )
+        return  # Origin decides when present; Referer only without it
 
 
-def verify_token(secret: bytes, token: str, now: float) -> int | None:
-    """The key id of a well-signed, unexpired token, else None (never raises)."""
-    parts = token.split(".")
-    if len(parts) != 3 or not (parts[0].isdigit() and parts[1].isdigit()) or len(token) > 200:
-        return None
-    key_id, expires = int(parts[0]), int(parts[1])
-    if not hmac.compare_digest(parts[2], _signature(secret, key_id, expires)):
-        return None
-    return key_id if expires > now else None
+def sign_in_token(request: Request) -> tuple[str, bool]:
+    """The double-submit token for the sign-in form and whether its cookie must be set."""
+    current = request.cookies.get(CSRF_COOKIE, "")
+    if 20 <= len(current) <= _MAX_TOKEN:
+        return current, False
+    return secrets.token_urlsafe(_TOKEN_BYTES), True
 
 
-def _cookie_principal(request: Request, session: SessionDep) -> Principal | None:
+def set_csrf_cookie(request: Request, response: Response, token: str) -> None:
+    response.set_cookie(
+        CSRF_COOKIE,
+        token,
+        path="/dashboard",
+        httponly=True,
+        samesite="strict",
+        secure=cookie_secure(request),
+    )
+
+
+def check_sign_in_token(request: Request, form_token: str | None) -> None:
+    """403 unless the form's ``csrf_token`` equals the ``riskfit_csrf`` cookie."""
+    cookie = request.cookies.get(CSRF_COOKIE, "")
+    if not cookie or not form_token or not hmac.compare_digest(cookie, form_token):
+        raise _forbidden(
+            "the sign-in form's csrf_token does not match this browser's riskfit_csrf cookie",
+            "csrf_token",
+            None,
+            f"open {SIGN_IN_PATH} again and submit the form from there (cookies enabled)",
+        )
+
+
+def _cookie_principal(request: Request, session: Session) -> Principal | None:
     token = request.cookies.get(COOKIE)
-    if not token:
+    if not token or len(token) > _MAX_TOKEN:
         return None
-    key_id = verify_token(_secret(request), token, time.time())
-    row = None if key_id is None else get_key(session=session, key_id=key_id)
-    if row is None or row.revoked_at is not None:
+    found = live_session(session=session, token_hash=token_hash(token))
+    if found is None:
         return None
+    row = found[1]
     install_audit(session, key_id=row.id)
     principal = Principal(role=row.role, key_id=row.id, name=row.name)  # type: ignore[arg-type]
     request.state.riskfit_principal = principal
+    request.state.riskfit_sign_out_token = sign_out_token(token)
     return principal
 
 
@@ -110,8 +174,8 @@ def dashboard_access(request: Request, session: SessionDep) -> Principal:
     """Router dependency of the dashboard pages: the key header, or the session cookie.
 
     The key header (or access control off) goes through the API's own check, so a wrong key
-    is a 401 as anywhere else. Otherwise a valid cookie admits its key's holder; failing
-    that, a browser is redirected to the sign-in page and other clients get the 401.
+    is a 401 as anywhere else. Otherwise a live session cookie admits its key's holder;
+    failing that, a browser is redirected to the sign-in page and other clients get the 401.
     """
     settings: Settings = request.app.state.settings
     has_header = "authorization" in request.headers or "x-api-key" in request.headers
@@ -126,14 +190,23 @@ def dashboard_access(request: Request, session: SessionDep) -> Principal:
     return authorize(request, session, "scorer")  # raises the 401 naming the header
 
 
-def signed_in_redirect(request: Request, principal: Principal, next_path: str) -> RedirectResponse:
-    """303 to ``next_path`` with the session cookie of ``principal`` (no cookie if anonymous)."""
+def signed_in_redirect(
+    request: Request, session: Session, principal: Principal, next_path: str
+) -> RedirectResponse:
+    """303 to ``next_path`` with a new session cookie of ``principal`` (none if anonymous)."""
     response = RedirectResponse(safe_next(next_path), status_code=303)
     if principal.key_id is None:
         return response
     settings: Settings = request.app.state.settings
     seconds = int(settings.dashboard_session_hours * 3600)
-    token = sign_token(_secret(request), principal.key_id, int(time.time()) + seconds)
+    token = secrets.token_urlsafe(_TOKEN_BYTES)
+    create_session(
+        session=session,
+        token_hash=token_hash(token),
+        key_id=principal.key_id,
+        expires_at=utcnow() + timedelta(seconds=seconds),
+    )
+    session.commit()
     response.set_cookie(
         COOKIE,
         token,
@@ -141,6 +214,23 @@ def signed_in_redirect(request: Request, principal: Principal, next_path: str) -
         path="/dashboard",
         httponly=True,
         samesite="strict",
-        secure=request.url.scheme == "https",
+        secure=cookie_secure(request),
     )
     return response
+
+
+def end_signed_in_session(request: Request, session: Session, form_token: str | None) -> None:
+    """Sign-out: end the cookie's session in the store (403 on a wrong ``csrf_token``)."""
+    check_origin(request)
+    token = request.cookies.get(COOKIE)
+    if not token or len(token) > _MAX_TOKEN:
+        return  # nothing to end
+    if not form_token or not hmac.compare_digest(form_token, sign_out_token(token)):
+        raise _forbidden(
+            "the sign-out form's csrf_token does not belong to this session",
+            "csrf_token",
+            None,
+            "sign out with the button on a dashboard page",
+        )
+    end_session(session=session, token_hash=token_hash(token))
+    session.commit()

@@ -16,6 +16,7 @@ InvalidInputError, FitError, NotEnoughOutcomes 422
 LimitExceededError with ``field == "body"``    413
 AuthenticationError                            401
 PermissionDeniedError                          403
+RequestTimeoutError (body stalled)             408
 StoreError, SQLAlchemy Operational/Interface  503
 other RiskfitError                             400
 RequestValidationError (pydantic)              422
@@ -45,6 +46,7 @@ from service.errors import (
     NotEnoughOutcomesError,
     NotFoundError,
     PermissionDeniedError,
+    RequestTimeoutError,
     RiskfitError,
     StoreError,
     _short,
@@ -60,6 +62,7 @@ _STATUS: tuple[tuple[type[RiskfitError], int], ...] = (
     (ConflictError, 409),
     (AuthenticationError, 401),
     (PermissionDeniedError, 403),
+    (RequestTimeoutError, 408),
     (StoreError, 503),
     (InvalidInputError, 422),
     (FitError, 422),

@@ -2,7 +2,9 @@
 
 :class:`AppMetrics` holds the collectors; :class:`MetricsMiddleware` is a pure ASGI
 middleware (no per-request task or body buffering) that counts requests by route template,
-method and status, and times them.
+method and status, and times them. :func:`metrics_gate` is the access rule of
+``GET /metrics`` (setting ``metrics_access``: ``key`` by default, ``open`` for a scraper that
+alone can reach the port).
 """
 
 from __future__ import annotations
@@ -11,10 +13,11 @@ import time
 from dataclasses import dataclass, field
 from typing import Any
 
+from fastapi import Request
 from prometheus_client import CollectorRegistry, Counter, Histogram
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-__all__ = ["AppMetrics", "MetricsMiddleware"]
+__all__ = ["AppMetrics", "MetricsMiddleware", "metrics_gate"]
 
 
 @dataclass
@@ -111,3 +114,14 @@ class MetricsMiddleware:
             label = getattr(route, "path", None) or "unmatched"
             method = scope.get("method", "")
             self.metrics.request_done(label, method, status, time.perf_counter() - start)
+
+
+async def metrics_gate(request: Request) -> None:
+    """``GET /metrics`` access: any valid API key (role scorer or higher) unless the setting
+    ``metrics_access`` is ``open``. The metrics name models and their volumes, so a port that
+    strangers can reach must not show them without a key."""
+    if request.app.state.settings.metrics_access == "open":
+        return
+    from service.security import admit  # security imports the api package
+
+    await admit(request, "scorer")

@@ -98,6 +98,8 @@ def test_dashboard_in_headless_chromium(
         try:
             context = browser.new_context(viewport={"width": 1280, "height": 900})
             page = context.new_page()
+            console: list[str] = []
+            page.on("console", lambda message: console.append(message.text))
             page.goto(f"{live_url}/dashboard", wait_until="load")
             assert page.url.startswith(f"{live_url}/dashboard/sign-in")  # no session yet
             page.fill("#api_key", "rk_not-a-key-of-this-service")
@@ -108,9 +110,10 @@ def test_dashboard_in_headless_chromium(
             page.wait_for_selector("#models")
             assert page.url == f"{live_url}/dashboard"
             assert page.inner_text("#signed-in-as") == "viewer"
-            (cookie,) = context.cookies()
+            (cookie,) = [c for c in context.cookies() if c["name"] == "riskfit_dashboard"]
             assert cookie["httpOnly"] and cookie["sameSite"] == "Strict"
-            assert filled["scorer_key"] not in cookie["value"]  # a signed token, not the key
+            assert all(c["httpOnly"] and c["sameSite"] == "Strict" for c in context.cookies())
+            assert filled["scorer_key"] not in cookie["value"]  # a session token, not the key
             assert page.evaluate("document.cookie") == ""  # HttpOnly: scripts cannot read it
             page.click(f"text={MODEL}")
             page.wait_for_selector("#model-name")
@@ -132,9 +135,12 @@ def test_dashboard_in_headless_chromium(
             )
             assert css_ok == "rgb(35, 48, 61)"  # the stylesheet loaded
             page.screenshot(path=str(Path("/tmp") / "riskfit-dashboard.png"), full_page=True)
+            # the Content-Security-Policy blocks nothing of the dashboard's own (Chromium
+            # reports every refused style, image or form as a console message)
+            assert not [m for m in console if "Content Security Policy" in m], console
             page.click("#sign-out button")
             page.wait_for_selector("#sign-in")
-            assert context.cookies() == []
+            assert [c["name"] for c in context.cookies()] == ["riskfit_csrf"]  # session gone
             page.goto(f"{live_url}/dashboard/{MODEL}", wait_until="load")
             assert page.url.startswith(f"{live_url}/dashboard/sign-in?next=/dashboard/{MODEL}")
         finally:

@@ -21,7 +21,7 @@ OPEN = "open"
 LEAST_ROLE: dict[tuple[str, str], str] = {
     ("GET", "/healthz"): OPEN,
     ("GET", "/readyz"): OPEN,
-    ("GET", "/metrics"): OPEN,
+    ("GET", "/metrics"): "scorer",  # RISKFIT_METRICS_ACCESS=key, the default
     ("GET", "/dashboard/static/riskfit.css"): OPEN,
     ("GET", "/dashboard/sign-in"): OPEN,
     ("POST", "/dashboard/sign-in"): OPEN,

@@ -31,7 +31,7 @@ def test_key_is_shown_once_and_stored_only_as_its_sha256(
     assert r.status_code == 201, r.text
     created = r.json()
     key = created["key"]
-    assert key.startswith("rk_") and len(key) >= 40 and created["prefix"] == key[:10]
+    assert key.startswith("rfk_") and len(key) >= 40 and created["prefix"] == key[:10]
     listing = secured.get("/api-keys", headers=creds["admin"]).json()
     assert key not in repr(listing) and all("key" not in k for k in listing["items"])
     assert key not in _dump_text(secured)  # nowhere in any table
@@ -148,7 +148,7 @@ def test_cli_keys_create_list_revoke(
     url = secured_settings.database_url
     assert main(["keys", "create", "--role", "admin", "--name", "ops", "--database-url", url]) == 0
     key = capsys.readouterr().out.strip().splitlines()[-1]  # the key is the last line
-    assert key.startswith("rk_")
+    assert key.startswith("rfk_")
     assert secured.get("/api-keys", headers=bearer(key)).status_code == 200
     assert main(["keys", "list", "--database-url", url]) == 0
     listing = capsys.readouterr().out
@@ -168,7 +168,7 @@ def test_cli_keys_create_on_an_empty_database_makes_the_first_admin(
 ) -> None:
     url = f"sqlite:///{tmp_path / 'fresh.db'}"
     assert main(["keys", "create", "--role", "admin", "--database-url", url]) == 0
-    assert capsys.readouterr().out.strip().splitlines()[-1].startswith("rk_")
+    assert capsys.readouterr().out.strip().splitlines()[-1].startswith("rfk_")
 
 
 def test_serve_no_auth_refuses_other_hosts(capsys: pytest.CaptureFixture[str]) -> None:

@@ -38,7 +38,7 @@ def test_upgrade_creates_exactly_the_orm_schema(db_url: str) -> None:
     try:
         tables = set(inspect(engine).get_table_names())
         assert tables == set(Base.metadata.tables) | {"alembic_version"}
-        assert current_revision(engine) == head_revision() == "0001"
+        assert current_revision(engine) == head_revision() == "0002"
         assert check_integrity(engine) == []
     finally:
         engine.dispose()
