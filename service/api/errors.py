@@ -150,7 +150,13 @@ async def _validation_error(request: Request, exc: Exception) -> JSONBytes:
             for e in errors[:20]
         ]
     }
-    remedy = f"Send {field} as the API schema at /docs describes ({first.get('msg', '')})."
+    ctx = first.get("ctx")
+    remedy = ctx.get("remedy") if isinstance(ctx, dict) else None  # a validator's own remedy
+    if not isinstance(remedy, str):
+        remedy = None
+    remedy = (
+        remedy or f"Send {field} as the API schema at /docs describes ({first.get('msg', '')})."
+    )
     body = error_body(
         "invalid_request", message, field=field, value=value, remedy=remedy, details=details
     )

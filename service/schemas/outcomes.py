@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from typing import Annotated, Any
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from service.schemas.common import ErrorDetail, StrictModel
+from service.schemas.common import ErrorDetail, Instant, StrictModel
 
 __all__ = [
     "OutcomeBatchPublic",
@@ -32,8 +32,11 @@ class OutcomeIn(StrictModel):
     outcome: Annotated[int, Field(strict=True, ge=0, le=1)] = Field(
         description="1 if the event happened, 0 if it did not (integers only)."
     )
-    observed_at: AwareDatetime | None = Field(
-        None, description="When the outcome was observed (ISO 8601 with zone; default: now)."
+    observed_at: Instant | None = Field(
+        None,
+        description="When the outcome was observed (ISO 8601 with a UTC offset; default: "
+        "when it is received). Not in the future (beyond the clock-skew allowance, setting "
+        "`RISKFIT_CLOCK_SKEW_SECONDS`) and not before the score it resolves was made.",
     )
 
     @model_validator(mode="after")
