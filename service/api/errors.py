@@ -34,6 +34,7 @@ from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from sqlalchemy.exc import InterfaceError, OperationalError
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.routing import Match
 
 from service.api.responses import JSONBytes
 from service.errors import (
@@ -163,6 +164,21 @@ async def _validation_error(request: Request, exc: Exception) -> JSONBytes:
     return JSONBytes(body, status_code=422)
 
 
+_CANDIDATES = ("GET", "HEAD", "POST", "PUT", "PATCH", "DELETE", "OPTIONS")
+
+
+def allowed_methods(request: Request) -> list[str]:
+    """Every method some route serves at this request's path, found by asking each route
+    whether it fully matches the path with that method (Starlette's own ``Allow`` names only
+    the methods of the first route matching the path, not the others at the same path)."""
+    routes = request.app.router.routes
+    return [
+        m
+        for m in _CANDIDATES
+        if any(r.matches({**request.scope, "method": m})[0] == Match.FULL for r in routes)
+    ]
+
+
 async def _http_error(request: Request, exc: Exception) -> JSONBytes:
     assert isinstance(exc, StarletteHTTPException)
     codes = {404: "no_such_path", 405: "method_not_allowed"}
@@ -170,14 +186,20 @@ async def _http_error(request: Request, exc: Exception) -> JSONBytes:
         404: "See /docs for the paths riskfit serves.",
         405: "See /docs for the methods this path accepts.",
     }.get(exc.status_code)
+    headers = dict(getattr(exc, "headers", None) or {})
+    if exc.status_code == 405:
+        allow = allowed_methods(request)
+        if allow:
+            headers["Allow"] = ", ".join(allow)
+            remedy = f"Use one of {', '.join(allow)} on this path (see /docs)."
     body = error_body(
         codes.get(exc.status_code, "http_error"),
         str(exc.detail),
-        field="path",
-        value=request.url.path,
+        field="method" if exc.status_code == 405 else "path",
+        value=request.method if exc.status_code == 405 else request.url.path,
         remedy=remedy,
     )
-    return JSONBytes(body, status_code=exc.status_code, headers=getattr(exc, "headers", None))
+    return JSONBytes(body, status_code=exc.status_code, headers=headers or None)
 
 
 async def _database_error(request: Request, exc: Exception) -> JSONBytes:

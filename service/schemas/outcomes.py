@@ -17,11 +17,18 @@ __all__ = [
     "OutcomeRefusedPublic",
 ]
 
-MAX_OUTCOMES = 50_000
-
-
 class OutcomeIn(StrictModel):
-    """One observed outcome, naming its score by ``score_id`` or by the record's ``key``."""
+    """One observed outcome, naming its score by ``score_id`` or by the record's ``key`` (at
+    least one of them; both must then name the same score)."""
+
+    model_config = ConfigDict(
+        json_schema_extra={
+            "anyOf": [
+                {"required": ["score_id"], "properties": {"score_id": {"type": "string"}}},
+                {"required": ["key"], "properties": {"key": {"type": "string"}}},
+            ]
+        }
+    )
 
     score_id: str | None = Field(
         None, min_length=1, max_length=36, description="`score_id` from POST .../scores."
@@ -62,7 +69,9 @@ class OutcomeCreate(StrictModel):
         }
     )
 
-    outcomes: list[OutcomeIn] = Field(min_length=1, max_length=MAX_OUTCOMES)
+    # The most items is the setting max_records_per_request, enforced by service.limits before
+    # the body is parsed; the OpenAPI document carries it as maxItems (service.api.openapi_doc).
+    outcomes: list[OutcomeIn] = Field(min_length=1)
 
 
 class OutcomeItemPublic(BaseModel):

@@ -42,7 +42,8 @@ class GateOverrides(StrictModel):
     )
     brier_margin: float | None = Field(None, ge=-1.0, le=1.0, description="Default 0.")
     slope_bounds: tuple[float, float] | None = Field(
-        None, description="Default [0.8, 1.2]: [low, high] for the challenger's slope."
+        None,
+        description="Default [0.8, 1.2]: [low, high] for the challenger's slope, low < high.",
     )
     auc_margin: float | None = Field(None, ge=0.0, le=1.0, description="Default 0.02.")
     min_outcomes: int | None = Field(None, ge=2, le=10_000_000, description="Default 100.")
