@@ -7,7 +7,7 @@ import re
 from datetime import UTC, datetime
 from typing import Annotated, Any
 
-from pydantic import BaseModel, ConfigDict, Field, PlainValidator, WithJsonSchema
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, WithJsonSchema
 from pydantic_core import PydanticCustomError
 
 __all__ = [
@@ -102,7 +102,7 @@ def parse_instant(value: Any) -> datetime:
 #: Every date-time a client sends: see :func:`parse_instant` and :data:`INSTANT_RULES`.
 Instant = Annotated[
     datetime,
-    PlainValidator(parse_instant),
+    BeforeValidator(parse_instant),
     WithJsonSchema({"type": "string", "format": "date-time", "description": INSTANT_RULES}),
 ]
 
