@@ -4,7 +4,7 @@ sent with an admin key (so requests reach the handlers) against the real app und
 keys). Checks: no 5xx (``not_a_server_error``), responses match their documented schema,
 status code and content type.
 
-CI size: ``RISKFIT_FUZZ_EXAMPLES`` examples per operation (default 30; about 2,000 requests in
+CI size: ``RISKFIT_FUZZ_EXAMPLES`` examples per operation (default 20; about 1,800 requests in
 all, with the explicit examples and schemathesis' coverage cases). The long on-demand run
 (30,000+ requests, a report of the figures) is ``tests/fuzz/run_long.py``.
 """
@@ -33,7 +33,7 @@ from service.config import Settings
 from tests.api._data import NEW_RECORDS, fit_body
 from tests.demo._live import live_server
 
-MAX_EXAMPLES = int(os.environ.get("RISKFIT_FUZZ_EXAMPLES", "30"))
+MAX_EXAMPLES = int(os.environ.get("RISKFIT_FUZZ_EXAMPLES", "20"))
 CHECKS = [
     not_a_server_error,
     response_schema_conformance,
@@ -61,6 +61,8 @@ def api_schema(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Any]:
         # names are the bad-input catalogue's (tests/security)
         config = SchemathesisConfig.from_dict({"parameters": {"model": "water-mains"}})
         yield schemathesis.openapi.from_url(f"{url}/openapi.json", config=config)
+    # the figures, shown with `pytest -s`
+    print(f"\nfuzz: {_STATE['requests']} requests, statuses {sorted(_STATE['statuses'].items())}")
 
 
 schema = schemathesis.pytest.from_fixture("api_schema")
