@@ -19,6 +19,7 @@ import argparse
 import collections
 import json
 import os
+import signal
 import subprocess
 import sys
 import tempfile
@@ -103,6 +104,8 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--workers", type=int, default=1)
     p.add_argument("--out", type=Path, default=None)
     args = p.parse_args(argv)
+    # SIGTERM (e.g. `timeout`) unwinds like ^C: schemathesis and the server are stopped too
+    signal.signal(signal.SIGTERM, lambda *_: sys.exit(143))
     out = args.out or Path(tempfile.mkdtemp(prefix="riskfit-fuzz-"))
     out.mkdir(parents=True, exist_ok=True)
     db = out / "fuzz.db"
