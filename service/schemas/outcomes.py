@@ -17,6 +17,7 @@ __all__ = [
     "OutcomeRefusedPublic",
 ]
 
+
 class OutcomeIn(StrictModel):
     """One observed outcome, naming its score by ``score_id`` or by the record's ``key`` (at
     least one of them; both must then name the same score)."""
