@@ -8,7 +8,7 @@ few scores with keys, then runs the schemathesis CLI over every operation with t
 5xx and check failures (from the NDJSON event report). Usage::
 
     PYTHONPATH=$PWD nice -n 10 /work/venv/bin/python tests/fuzz/run_long.py \\
-        [--max-examples 400] [--seed 1] [--workers 1] [--out DIR]
+        [--max-examples 400] [--slow-examples 40] [--max-time SECONDS] [--seed 1] [--out DIR]
 
 The CI-sized run is tests/fuzz/test_openapi_fuzz.py (``RISKFIT_FUZZ_EXAMPLES`` raises it).
 """
@@ -102,6 +102,8 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--max-examples", type=int, default=400)
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--workers", type=int, default=1)
+    p.add_argument("--slow-examples", type=int, default=40, help="for drift and plots")
+    p.add_argument("--max-time", type=int, default=0, help="seconds; 0: no time budget")
     p.add_argument("--out", type=Path, default=None)
     args = p.parse_args(argv)
     # SIGTERM (e.g. `timeout`) unwinds like ^C: schemathesis and the server are stopped too
@@ -139,7 +141,14 @@ def main(argv: list[str] | None = None) -> int:
         config = out / "schemathesis.toml"
         # The path parameter ``model`` is pinned so requests reach the handlers (bad model
         # names are the bad-input catalogue's); everything else is generated.
-        config.write_text('[parameters]\n"model" = "water-mains"\n')
+        # Operations that compute a drift view or draw a plot take about a second each: fewer
+        # examples there, so the budget goes to the many fast operations.
+        config.write_text(
+            '[parameters]\n"model" = "water-mains"\n\n'
+            "[[operations]]\n"
+            'include-path-regex = "drift|reliability|^/dashboard/\\\\{model\\\\}"\n'
+            f"generation.max-examples = {args.slow_examples}\n"
+        )
         started = time.monotonic()
         cmd = [
             str(Path(sys.executable).with_name("schemathesis")),
@@ -171,6 +180,7 @@ def main(argv: list[str] | None = None) -> int:
             "--report-ndjson-path",
             str(ndjson),
             "--no-color",
+            *(("--max-time", str(args.max_time)) if args.max_time else ()),
         ]
         done = subprocess.run(cmd, cwd=out, capture_output=True, text=True, check=False)
         (out / "schemathesis.txt").write_text(done.stdout + done.stderr)
