@@ -63,11 +63,16 @@ def parse_instant(value: Any) -> datetime:
     else:
         text = value.strip().upper()
         if not _ISO.fullmatch(text):
+            plus_lost = (
+                len(text) > 6 and text[-6] == " " and _ISO.fullmatch(f"{text[:-6]}+{text[-5:]}")
+            )
             raise _refuse(
                 "datetime_format",
                 "not an ISO 8601 date-time with a UTC offset (YYYY-MM-DDTHH:MM[:SS[.f]]±HH:MM "
                 "or Z)",
-                f"send e.g. {_EXAMPLE!r}; give the offset (Z for UTC) explicitly",
+                "in a URL, write the offset's + as %2B (a bare + reads as a space)"
+                if plus_lost
+                else f"send e.g. {_EXAMPLE!r}; give the offset (Z for UTC) explicitly",
             )
         try:
             parsed = datetime.fromisoformat(text)

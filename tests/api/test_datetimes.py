@@ -158,3 +158,13 @@ def test_a_valid_window_reaches_the_refit(api: ApiClient) -> None:
     body = {"since": "2020-01-01T00:00:00+05:00", "until": "2030-01-01T00:00:00Z", "dry_run": True}
     r = api.post(f"/risk-models/{MODEL}/refits", json=body)
     assert r.status_code == 422 and r.json()["error"]["code"] == "not_enough_outcomes", r.text
+
+
+def test_an_offset_whose_plus_became_a_space_gets_a_url_remedy(api: ApiClient) -> None:
+    r = api.get("/audit-events?since=2025-02-11T08:30:00+01:00")  # + unencoded: a space
+    assert r.status_code == 422
+    err = r.json()["error"]
+    assert err["field"] == "since" and err["value"] == "2025-02-11T08:30:00 01:00"
+    assert "%2B" in err["remedy"]
+    ok = api.get("/audit-events?since=2025-02-11T08:30:00%2B01:00")
+    assert ok.status_code == 200, ok.text
