@@ -22,8 +22,9 @@ OUTCOMES = f"/risk-models/{MODEL}/outcomes"
 
 
 @pytest.fixture
-def api(tmp_path: Path) -> Iterator[ApiClient]:
-    settings = Settings(database_url=sqlite_url(tmp_path), auth_required=False)
+def api(database_url: str) -> Iterator[ApiClient]:
+    """SQLite and PostgreSQL (tests/api/conftest.py): the score times come from the store."""
+    settings = Settings(database_url=database_url, auth_required=False)
     client = ApiClient(create_app(settings))
     try:
         assert client.post(f"/risk-models/{MODEL}/versions", json=fit_body()).status_code == 201
