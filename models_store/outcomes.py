@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from datetime import datetime
+from datetime import datetime, timedelta
 from typing import Any, cast
 
 from sqlalchemy import Table, insert, select
@@ -21,6 +21,8 @@ __all__ = ["OutcomeItem", "OutcomeResult", "add_outcomes", "get_outcome"]
 _TABLE = cast(Table, Outcome.__table__)  # Core inserts, no ORM bookkeeping
 
 MAX_ATTEMPTS = 5
+#: Default allowance for clocks that disagree (the service's setting clock_skew_seconds).
+CLOCK_SKEW = timedelta(seconds=300)
 
 
 @dataclass(frozen=True)
@@ -101,6 +103,7 @@ def add_outcomes(
     model: RiskModel,
     items: Sequence[Mapping[str, Any]],
     received_at: datetime | None = None,
+    clock_skew: timedelta = CLOCK_SKEW,
 ) -> OutcomeResult:
     """Join outcomes to ``model``'s scores; each item names ``score_id`` or ``key``.
 
@@ -113,10 +116,17 @@ def add_outcomes(
     (``observed_at`` defaults to ``received_at``, itself defaulting to now). Concurrent
     ingestion of the same score: the unique constraint on ``outcome.score_id`` refuses the later
     insert, inside a savepoint; the batch is then re-classified against what is stored now.
+
+    Dates: an ``observed_at`` later than ``received_at + clock_skew`` (in the future) or
+    earlier than ``scored_at - clock_skew`` of the score it resolves refuses the *whole*
+    batch (:class:`DataError`, 422, naming ``outcomes[i].observed_at``): nothing is written,
+    as for any other malformed item.
     """
     parsed = _parse(items)
     now = received_at or utcnow()
+    _check_not_future(parsed, now, clock_skew)
     resolved, unknown, snapshots = _resolve(session, model, parsed)
+    _check_after_score(resolved, snapshots, clock_skew)
     for _attempt in range(MAX_ATTEMPTS):
         stored = _stored_outcomes(session, [sid for sid, _ in resolved])
         result = _classify(resolved, stored, unknown)
@@ -143,6 +153,59 @@ def add_outcomes(
 
 
 _Snapshot = tuple[str | None, int, float, float, float, datetime]  # key, version, eta, se, p, at
+
+
+def _refuse_dates(bad: list[_Item], message: str, remedy: str) -> None:
+    first = bad[0]
+    assert first.observed_at is not None
+    raise DataError(
+        f"{len(bad)} outcome(s) {message}; nothing was stored",
+        field=f"outcomes[{first.index}].observed_at",
+        value=first.observed_at.isoformat(),
+        remedy=remedy,
+        details={"indexes": [b.index for b in bad[:20]]},
+    )
+
+
+def _check_not_future(parsed: list[_Item], now: datetime, skew: timedelta) -> None:
+    for p in parsed:
+        if p.observed_at is not None and p.observed_at.utcoffset() is None:
+            raise DataError(
+                "observed_at has no UTC offset",
+                field=f"outcomes[{p.index}].observed_at",
+                value=p.observed_at.isoformat(),
+                remedy="give observed_at with its offset, e.g. 2025-02-11T08:30:00Z",
+            )
+    latest = now + skew
+    bad = [p for p in parsed if p.observed_at is not None and p.observed_at > latest]
+    if bad:
+        _refuse_dates(
+            bad,
+            f"are dated in the future (after {latest.isoformat()}: the time received plus "
+            f"{skew.total_seconds():.0f} s of clock-skew allowance)",
+            "send the time the outcome was observed, not a future date; leave observed_at out "
+            "to use the time received (check the sender's clock)",
+        )
+
+
+def _check_after_score(
+    resolved: list[tuple[str, _Item]], snapshots: dict[str, _Snapshot], skew: timedelta
+) -> None:
+    bad = [
+        p
+        for sid, p in resolved
+        if p.observed_at is not None and p.observed_at < snapshots[sid][5] - skew
+    ]
+    if bad:
+        first = next(sid for sid, p in resolved if p is bad[0])
+        _refuse_dates(
+            bad,
+            f"are dated before the score they resolve was made (score {first} was made at "
+            f"{snapshots[first][5].isoformat()}; {skew.total_seconds():.0f} s of clock-skew "
+            "allowed)",
+            "an outcome is observed after its score: check observed_at and which score the "
+            "item names (score_id or key)",
+        )
 
 
 def _resolve(

@@ -21,6 +21,7 @@ from models_store.db import make_engine, make_session_factory, upgrade
 from service import __version__
 from service.api.errors import install_error_handlers
 from service.api.metrics import AppMetrics, MetricsMiddleware
+from service.api.openapi_doc import install_openapi
 from service.compute import apply_compute_settings
 from service.config import Settings, get_settings
 from service.heap import server_heap
@@ -114,6 +115,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     install_error_handlers(app)
     for router in _routers():
         app.include_router(router, dependencies=[Depends(authenticate_first)])
+    install_openapi(app, settings)  # service.api.openapi_doc: what is enforced, documented
     app.add_middleware(LimitsMiddleware, settings=settings)
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
     # web security (service/web_security.py): headers by path prefix; a stalled body is a 408

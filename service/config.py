@@ -128,6 +128,13 @@ class Settings(BaseSettings):
     )
 
     # --- monitoring (outcomes, calibration, drift, alerts) ---
+    clock_skew_seconds: int = Field(
+        300,
+        ge=0,
+        le=86_400,
+        description="Allowance for disagreeing clocks: an outcome's observed_at may be at most "
+        "this far in the future, or this far before the score it resolves (else 422).",
+    )
     monitor_min_outcomes: int = Field(
         100, ge=10, description="Fewest outcomes a calibration report or drift window needs."
     )

@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-from datetime import datetime
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Query
 
 from models_store.audit import list_events
 from service.api.deps import AdminAccess, SessionDep
+from service.schemas.common import Instant
 from service.schemas.keys import AuditEventList
 
 router = APIRouter(prefix="/audit-events", tags=["access"])
@@ -18,8 +18,12 @@ router = APIRouter(prefix="/audit-events", tags=["access"])
 def get_audit_events(
     session: SessionDep,
     _: AdminAccess,
-    since: Annotated[datetime | None, Query(description="Events at or after (ISO 8601).")] = None,
-    until: Annotated[datetime | None, Query(description="Events before (ISO 8601).")] = None,
+    since: Annotated[
+        Instant | None, Query(description="Events at or after (ISO 8601 with a UTC offset).")
+    ] = None,
+    until: Annotated[
+        Instant | None, Query(description="Events before (ISO 8601 with a UTC offset).")
+    ] = None,
     action: str | None = Query(None, max_length=64, description="e.g. `champion.change`."),
     model: str | None = Query(None, max_length=200, description="Model name."),
     key_id: int | None = Query(None, ge=1, le=2_147_483_647, description="Acting key id."),

@@ -35,6 +35,7 @@ from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from sqlalchemy.exc import InterfaceError, OperationalError
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.routing import Match
 
 from service.api.responses import JSONBytes
 from service.errors import (
@@ -153,11 +154,32 @@ async def _validation_error(request: Request, exc: Exception) -> JSONBytes:
             for e in errors[:20]
         ]
     }
-    remedy = f"Send {field} as the API schema at /docs describes ({first.get('msg', '')})."
+    ctx = first.get("ctx")
+    remedy = ctx.get("remedy") if isinstance(ctx, dict) else None  # a validator's own remedy
+    if not isinstance(remedy, str):
+        remedy = None
+    remedy = (
+        remedy or f"Send {field} as the API schema at /docs describes ({first.get('msg', '')})."
+    )
     body = error_body(
         "invalid_request", message, field=field, value=value, remedy=remedy, details=details
     )
     return JSONBytes(body, status_code=422)
+
+
+_CANDIDATES = ("GET", "HEAD", "POST", "PUT", "PATCH", "DELETE", "OPTIONS")
+
+
+def allowed_methods(request: Request) -> list[str]:
+    """Every method some route serves at this request's path, found by asking each route
+    whether it fully matches the path with that method (Starlette's own ``Allow`` names only
+    the methods of the first route matching the path, not the others at the same path)."""
+    routes = request.app.router.routes
+    return [
+        m
+        for m in _CANDIDATES
+        if any(r.matches({**request.scope, "method": m})[0] == Match.FULL for r in routes)
+    ]
 
 
 async def _http_error(request: Request, exc: Exception) -> JSONBytes:
@@ -167,14 +189,20 @@ async def _http_error(request: Request, exc: Exception) -> JSONBytes:
         404: "See /docs for the paths riskfit serves.",
         405: "See /docs for the methods this path accepts.",
     }.get(exc.status_code)
+    headers = dict(getattr(exc, "headers", None) or {})
+    if exc.status_code == 405:
+        allow = allowed_methods(request)
+        if allow:
+            headers["Allow"] = ", ".join(allow)
+            remedy = f"Use one of {', '.join(allow)} on this path (see /docs)."
     body = error_body(
         codes.get(exc.status_code, "http_error"),
         str(exc.detail),
-        field="path",
-        value=request.url.path,
+        field="method" if exc.status_code == 405 else "path",
+        value=request.method if exc.status_code == 405 else request.url.path,
         remedy=remedy,
     )
-    return JSONBytes(body, status_code=exc.status_code, headers=getattr(exc, "headers", None))
+    return JSONBytes(body, status_code=exc.status_code, headers=headers or None)
 
 
 async def _database_error(request: Request, exc: Exception) -> JSONBytes:

@@ -14,7 +14,6 @@ from __future__ import annotations
 import threading
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
-from datetime import datetime
 from typing import Annotated, Any, Literal, TypeVar, cast
 
 from fastapi import APIRouter, Depends, FastAPI, Path, Query, Request, Response
@@ -42,6 +41,7 @@ from service.monitoring.thresholds import for_model
 from service.monitoring.warm import Warmer, recent_model_ids
 from service.plots import PlotFormat, drift_figure, psi_figure, reliability_figure, render
 from service.schemas import ErrorResponse
+from service.schemas.common import Instant
 from service.schemas.monitoring import AlertList, AlertPublic, CalibrationReportPublic, DriftPublic
 
 MEDIA = {"svg": "image/svg+xml", "png": "image/png"}
@@ -61,10 +61,11 @@ def get_window(
     model: ModelDep,
     session: SessionDep,
     since: Annotated[
-        datetime | None, Query(description="Window start (inclusive), ISO 8601 with zone.")
+        Instant | None, Query(description="Window start (inclusive), ISO 8601 with an offset.")
     ] = None,
     until: Annotated[
-        datetime | None, Query(description="Window end (exclusive), ISO 8601 with zone.")
+        Instant | None,
+        Query(description="Window end (exclusive), ISO 8601 with an offset; after `since`."),
     ] = None,
     on: Annotated[
         Literal["score", "outcome"], Query(description="Window on score time or outcome time.")
@@ -73,15 +74,8 @@ def get_window(
         int | None, Query(ge=1, le=2_147_483_647, description="One version (default: all).")
     ] = None,
 ) -> Window:
-    """The ``since``/``until``/``on``/``version`` query, checked (zones, order, version)."""
-    for name, value in (("since", since), ("until", until)):
-        if value is not None and value.utcoffset() is None:
-            raise InvalidInputError(
-                f"{name} has no time zone",
-                field=name,
-                value=value.isoformat(),
-                remedy=f"give {name} in UTC, e.g. {value.isoformat()}Z",
-            )
+    """The ``since``/``until``/``on``/``version`` query, checked (form, zone and range by
+    :data:`service.schemas.common.Instant`; here the order and the version)."""
     if since is not None and until is not None and since >= until:
         raise InvalidInputError(
             "the window is empty: since must be before until",

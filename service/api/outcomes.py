@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+from datetime import timedelta
+
 from fastapi import APIRouter
 
-from service.api.deps import ModelDep, ScorerAccess, SessionDep
+from service.api.deps import ModelDep, ScorerAccess, SessionDep, SettingsDep
 from service.api.responses import JSONBytes
 from service.monitoring import ingest_outcomes
 from service.schemas.common import ErrorResponse
@@ -14,7 +16,9 @@ router = APIRouter(prefix="/risk-models/{model}/outcomes", tags=["outcomes"])
 
 DESCRIPTION = """
 Each item names its score by `score_id` (from `POST .../scores`) or by the record's `key`,
-and gives `outcome` 0 or 1 and optionally `observed_at` (ISO 8601 with a zone; default now).
+and gives `outcome` 0 or 1 and optionally `observed_at` (ISO 8601 with a UTC offset; default:
+the time received). `observed_at` may not lie in the future nor before the score was made
+(both beyond a clock-skew allowance, setting `RISKFIT_CLOCK_SKEW_SECONDS`, default 300 s).
 
 Every item lands in exactly one list of the answer:
 `accepted` (stored now), `duplicates` (this same outcome was already stored, or sent earlier
@@ -28,7 +32,10 @@ Status:
   unknown): read the lists;
 * **409** - no item stood and at least one conflicts; the body also has `error`;
 * **404** - every item names an unknown score; the body also has `error`;
-* **422** - the batch is malformed (nothing stored), with the field, value and remedy.
+* **422** - the batch is malformed (nothing stored), with the field, value and remedy:
+  e.g. a bad `outcome`, an item naming no score, more items than the setting
+  `RISKFIT_MAX_RECORDS_PER_REQUEST`, or any item's `observed_at` out of order as above (the
+  field names the first such item, `outcomes[i].observed_at`; `details.indexes` lists them).
 """
 
 
@@ -52,8 +59,13 @@ Status:
     },
 )
 def post_outcomes(
-    body: OutcomeCreate, model: ModelDep, session: SessionDep, _: ScorerAccess
+    body: OutcomeCreate,
+    model: ModelDep,
+    session: SessionDep,
+    settings: SettingsDep,
+    _: ScorerAccess,
 ) -> JSONBytes:
     items = [item.model_dump(exclude_none=True) for item in body.outcomes]
-    status, answer = ingest_outcomes(session=session, model=model, items=items)
+    skew = timedelta(seconds=settings.clock_skew_seconds)
+    status, answer = ingest_outcomes(session=session, model=model, items=items, clock_skew=skew)
     return JSONBytes(answer, status_code=status)

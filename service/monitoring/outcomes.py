@@ -17,12 +17,13 @@ the store when the client reads the answer. The HTTP status is chosen by
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from datetime import timedelta
 from typing import Any
 
 from sqlalchemy.orm import Session
 
 from models_store.orm import RiskModel
-from models_store.outcomes import OutcomeItem, OutcomeResult, add_outcomes
+from models_store.outcomes import CLOCK_SKEW, OutcomeItem, OutcomeResult, add_outcomes
 
 __all__ = ["ingest_outcomes", "outcome_status"]
 
@@ -82,10 +83,17 @@ def _error(result: OutcomeResult, status: int) -> dict[str, Any] | None:
 
 
 def ingest_outcomes(
-    *, session: Session, model: RiskModel, items: Sequence[Mapping[str, Any]]
+    *,
+    session: Session,
+    model: RiskModel,
+    items: Sequence[Mapping[str, Any]],
+    clock_skew: timedelta = CLOCK_SKEW,
 ) -> tuple[int, dict[str, Any]]:
-    """Store the outcomes of ``items``; returns ``(http_status, answer body)`` after commit."""
-    result = add_outcomes(session=session, model=model, items=items)
+    """Store the outcomes of ``items``; returns ``(http_status, answer body)`` after commit.
+
+    A batch with an impossible ``observed_at`` (in the future beyond ``clock_skew``, or before
+    its score was made) is refused whole before anything is written (422)."""
+    result = add_outcomes(session=session, model=model, items=items, clock_skew=clock_skew)
     session.commit()  # acknowledged means stored
     counts = {name: len(getattr(result, name)) for name in _LISTS}
     status = outcome_status(counts)

@@ -95,7 +95,10 @@ class DriftPublic(BaseModel):
 
 
 class AlertThresholdsUpdate(StrictModel):
-    """Per-model alert thresholds; a name left out uses the service default (settings)."""
+    """Per-model alert thresholds; a name left out uses the service default (settings).
+
+    Once merged with the defaults, ``slope_low < slope_high`` and ``oe_low < oe_high`` (else
+    422 naming the field sent)."""
 
     citl_tolerance: float | None = Field(
         None,

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from typing import Annotated, Any
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from service.schemas.common import ErrorDetail, StrictModel
+from service.schemas.common import ErrorDetail, Instant, StrictModel
 
 __all__ = [
     "OutcomeBatchPublic",
@@ -17,11 +17,19 @@ __all__ = [
     "OutcomeRefusedPublic",
 ]
 
-MAX_OUTCOMES = 50_000
-
 
 class OutcomeIn(StrictModel):
-    """One observed outcome, naming its score by ``score_id`` or by the record's ``key``."""
+    """One observed outcome, naming its score by ``score_id`` or by the record's ``key`` (at
+    least one of them; both must then name the same score)."""
+
+    model_config = ConfigDict(
+        json_schema_extra={
+            "anyOf": [
+                {"required": ["score_id"], "properties": {"score_id": {"type": "string"}}},
+                {"required": ["key"], "properties": {"key": {"type": "string"}}},
+            ]
+        }
+    )
 
     score_id: str | None = Field(
         None, min_length=1, max_length=36, description="`score_id` from POST .../scores."
@@ -32,8 +40,11 @@ class OutcomeIn(StrictModel):
     outcome: Annotated[int, Field(strict=True, ge=0, le=1)] = Field(
         description="1 if the event happened, 0 if it did not (integers only)."
     )
-    observed_at: AwareDatetime | None = Field(
-        None, description="When the outcome was observed (ISO 8601 with zone; default: now)."
+    observed_at: Instant | None = Field(
+        None,
+        description="When the outcome was observed (ISO 8601 with a UTC offset; default: "
+        "when it is received). Not in the future (beyond the clock-skew allowance, setting "
+        "`RISKFIT_CLOCK_SKEW_SECONDS`) and not before the score it resolves was made.",
     )
 
     @model_validator(mode="after")
@@ -59,7 +70,9 @@ class OutcomeCreate(StrictModel):
         }
     )
 
-    outcomes: list[OutcomeIn] = Field(min_length=1, max_length=MAX_OUTCOMES)
+    # The most items is the setting max_records_per_request, enforced by service.limits before
+    # the body is parsed; the OpenAPI document carries it as maxItems (service.api.openapi_doc).
+    outcomes: list[OutcomeIn] = Field(min_length=1)
 
 
 class OutcomeItemPublic(BaseModel):

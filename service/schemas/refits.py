@@ -14,9 +14,17 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any, Literal
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationInfo,
+    field_validator,
+    model_validator,
+)
+from pydantic_core import PydanticCustomError
 
-from service.schemas.common import StrictModel
+from service.schemas.common import Instant, StrictModel
 
 __all__ = ["GateOverrides", "RefitCreate", "RefitList", "RefitPublic", "RefitSummary"]
 
@@ -34,7 +42,8 @@ class GateOverrides(StrictModel):
     )
     brier_margin: float | None = Field(None, ge=-1.0, le=1.0, description="Default 0.")
     slope_bounds: tuple[float, float] | None = Field(
-        None, description="Default [0.8, 1.2]: [low, high] for the challenger's slope."
+        None,
+        description="Default [0.8, 1.2]: [low, high] for the challenger's slope, low < high.",
     )
     auc_margin: float | None = Field(None, ge=0.0, le=1.0, description="Default 0.02.")
     min_outcomes: int | None = Field(None, ge=2, le=10_000_000, description="Default 100.")
@@ -64,8 +73,14 @@ class RefitCreate(StrictModel):
         description="`auto`: closed testing picks the smallest sufficient update; or force "
         "`intercept`, `recalibrate` or `refit`.",
     )
-    since: AwareDatetime | None = Field(None, description="Scores made at or after (UTC).")
-    until: AwareDatetime | None = Field(None, description="Scores made before (UTC).")
+    since: Instant | None = Field(
+        None, description="Scores made at or after (ISO 8601 with a UTC offset)."
+    )
+    until: Instant | None = Field(
+        None,
+        description="Scores made before (ISO 8601 with a UTC offset); later than `since` "
+        "when both are given.",
+    )
     last_n: int | None = Field(
         None, ge=2, le=100_000_000, description="Only the newest N scored records with outcomes."
     )
@@ -85,11 +100,17 @@ class RefitCreate(StrictModel):
     dry_run: bool = Field(False, description="Decide and answer; write nothing.")
     note: str | None = Field(None, max_length=2000, description="Kept with the new version.")
 
-    @model_validator(mode="after")
-    def _window_ordered(self) -> RefitCreate:
-        if self.since is not None and self.until is not None and self.since >= self.until:
-            raise ValueError("since must be before until")
-        return self
+    @field_validator("until")
+    @classmethod
+    def _window_ordered(cls, until: datetime | None, info: ValidationInfo) -> datetime | None:
+        since = info.data.get("since")
+        if since is not None and until is not None and since >= until:
+            raise PydanticCustomError(
+                "window_order",
+                "the window is empty: until must be later than since",
+                {"remedy": "give an until later than since, or leave one of them out"},
+            )
+        return until
 
 
 class RefitSummary(BaseModel):

@@ -7,6 +7,7 @@ import json
 from collections.abc import Callable
 from typing import Any
 
+from tests.api._bad_input_dates import DATE_CASES
 from tests.api._data import NEW_RECORDS, SPEC, fit_body, segments
 
 FIT = "/risk-models/water-mains/versions"
@@ -379,4 +380,5 @@ CASES: list[tuple[str, str, str, Any, int, str, str | None, Any]] = [
         "reason",
         "",
     ),
+    *DATE_CASES,  # tests/api/_bad_input_dates.py
 ]

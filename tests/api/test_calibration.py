@@ -4,6 +4,7 @@ and statsmodels on the same joined data, plus windows, small windows and bad que
 from __future__ import annotations
 
 from collections.abc import Iterator
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import numpy as np
@@ -72,12 +73,20 @@ def test_measures_equal_sklearn_and_statsmodels(api: ApiClient) -> None:
 def test_windows_on_outcome_time_select_the_records(api: ApiClient) -> None:
     s = score(api, 1200, seed=31)
     y = draw_outcomes(s.p, seed=32)
-    months = ["2025-01-15T00:00:00Z" if i % 3 else "2025-03-15T00:00:00Z" for i in range(1200)]
+    # Outcomes are observed after their score and not in the future (each within the 300 s
+    # clock-skew allowance): two groups 4 minutes either side of t0, just after scoring.
+    t0 = datetime.now(UTC)
+    early, late = (t0 - timedelta(seconds=240)).isoformat(), (t0 + timedelta(seconds=240))
+    months = [early if i % 3 else late.isoformat() for i in range(1200)]
     post_outcomes(api, s.ids, y, observed_at=months)
     jan = np.array([i % 3 != 0 for i in range(1200)])
     r = api.get(
         URL,
-        params={"on": "outcome", "since": "2025-01-01T00:00:00Z", "until": "2025-02-01T00:00:00Z"},
+        params={
+            "on": "outcome",
+            "since": (t0 - timedelta(seconds=250)).isoformat(),
+            "until": t0.isoformat(),
+        },
     )
     b = r.json()
     assert r.status_code == 200 and b["counts"]["n"] == int(jan.sum())
@@ -85,7 +94,7 @@ def test_windows_on_outcome_time_select_the_records(api: ApiClient) -> None:
     assert b["measures"]["probability_scores"]["brier"] == pytest.approx(
         brier_score_loss(y[jan], s.p[jan]), abs=1e-12
     )
-    later = api.get(URL, params={"on": "outcome", "since": "2025-03-01T00:00:00Z"}).json()
+    later = api.get(URL, params={"on": "outcome", "since": t0.isoformat()}).json()
     assert later["counts"]["n"] == 400
     # score-time windows: every score was made "now", so a window ending in 2000 is empty
     empty = api.get(URL, params={"until": "2000-01-01T00:00:00Z"}).json()

@@ -60,12 +60,14 @@ def test_snapshot_equals_the_store_after_incremental_refreshes(api: ApiClient) -
     snaps = OutcomeSnapshots()
     s = score(api, 900, seed=201)
     y = draw_outcomes(s.p, seed=202)
-    late = [(datetime(2026, 3, 1, tzinfo=UTC) + timedelta(hours=i)).isoformat() for i in range(900)]
+    # observed after the scores, not in the future: within the 300 s clock-skew allowance
+    t0 = datetime.now(UTC) - timedelta(seconds=250)
+    late = [(t0 + timedelta(seconds=i / 4)).isoformat() for i in range(900)]
     post_outcomes(api, s.ids[:600], y[:600], observed_at=late[:600])
     _check(api, snaps)
     post_outcomes(api, s.ids[600:], y[600:], observed_at=late[600:])
     post_outcomes(api, s.ids[:50], y[:50])  # duplicates: nothing new is stored
-    since = datetime(2026, 3, 10, tzinfo=UTC)
+    since = t0 + timedelta(seconds=54)
     snap = _check(api, snaps, since=since, on="outcome")
     assert snap.n == 900 and np.unique(snap.cols["id"]).size == 900
     _check(api, snaps, version=1, until=datetime.now(UTC))

@@ -15,6 +15,7 @@ import pytest
 
 from tests.api._data import NEW_RECORDS, SPEC, fit_body, rows_of, segments
 from tests.api.conftest import ApiClient
+from tests.security._catalogue_more import MORE_CASES, VALUES
 from tests.security.conftest import MODEL, content_dump
 
 FIT = f"/risk-models/{MODEL}/versions"
@@ -334,17 +335,22 @@ CATALOGUE: list[tuple[str, str, str, dict[str, Any], int, str]] = [
         "body",
     ),
     ("not-json", "POST", SCORE, {"content": b"records=1", "headers": RAW}, 422, ""),
+    *MORE_CASES,  # tests/security/_catalogue_more.py
 ]
 
 
 # Cases that once failed outside this suite's files, fixed since; add a case here with an
 # xfail(strict=True) mark when the catalogue finds a new one.
 KNOWN: dict[str, pytest.MarkDecorator] = {}
+_NO_VALUE = object()
 
 
 @pytest.mark.parametrize(
-    ("method", "url", "kwargs", "status", "field"),
-    [pytest.param(*c[1:], id=c[0], marks=KNOWN.get(c[0], ())) for c in CATALOGUE],
+    ("method", "url", "kwargs", "status", "field", "value"),
+    [
+        pytest.param(*c[1:], VALUES.get(c[0], _NO_VALUE), id=c[0], marks=KNOWN.get(c[0], ()))
+        for c in CATALOGUE
+    ],
 )
 def test_bad_input_is_refused_with_field_value_and_remedy(
     limited_api: ApiClient,
@@ -354,6 +360,7 @@ def test_bad_input_is_refused_with_field_value_and_remedy(
     kwargs: dict[str, Any],
     status: int,
     field: str,
+    value: Any,
 ) -> None:
     api = limited_api
     before = content_dump(api)
@@ -365,11 +372,13 @@ def test_bad_input_is_refused_with_field_value_and_remedy(
     err = r.json()["error"]
     assert err["message"] and err["remedy"] and "value" in err, err
     assert err["field"] is not None and field in err["field"], err
+    if value is not _NO_VALUE:
+        assert err["value"] == value and type(err["value"]) is type(value), err
     assert content_dump(api) == before
     assert api.get("/healthz").status_code == 200
     good = api.post(SCORE, json={"records": NEW_RECORDS}, headers=limited_admin)
     assert good.status_code == 200, good.text[:300]
 
 
-def test_the_catalogue_has_at_least_30_kinds() -> None:
-    assert len({c[0] for c in CATALOGUE}) >= 30
+def test_the_catalogue_has_at_least_80_kinds() -> None:
+    assert len({c[0] for c in CATALOGUE}) == len(CATALOGUE) >= 80
