@@ -49,7 +49,13 @@ class Case:
 
 
 def _level_text(v: Any) -> str:
-    return v if isinstance(v, str) else repr(v)
+    """A categorical cell as text: a whole number sent as 1.0 or 1 is the level "1" (JSON has
+    one number type; common practice), other numbers as Python writes them."""
+    if isinstance(v, str):
+        return v
+    if isinstance(v, float) and v.is_integer():
+        return str(int(v))
+    return repr(v)
 
 
 def reference_design(spec: dict[str, Any], columns: dict[str, list[Any]]) -> pd.DataFrame:
@@ -393,6 +399,36 @@ def anes96() -> Case:
     return _frame_case("anes96", "statsmodels.datasets.anes96", df, feats)
 
 
+def anes96_codes() -> Case:
+    """statsmodels.datasets.anes96 as shipped: party id and education as numeric codes
+    (floats 0.0..6.0, ints 1..7) declared categorical; records scored with int codes."""
+    d = sm.datasets.anes96.load_pandas().data
+    df = pd.DataFrame(
+        {
+            "selfLR": d.selfLR,
+            "PID": d.PID,
+            "educ": d.educ.astype(int),
+            "income": d.income,
+            "outcome": d.vote.astype(int),
+        }
+    )
+    feats = [_num("selfLR"), _cat("PID"), _cat("educ"), _num("income")]
+    case = _frame_case("anes96-codes", "statsmodels.datasets.anes96", df, feats, seed=1)
+    for rec in case.score_records:
+        rec["PID"] = int(rec["PID"])
+    return case
+
+
+def anes96_empty_cells() -> Case:
+    """statsmodels.datasets.anes96, PID x educ: two cells of the interaction are empty (no
+    voter with PID 3 or 5 and educ 1), so the design has rank 54 of 56 columns."""
+    case = anes96()
+    case.name = "anes96-PIDxeduc"
+    case.spec = {**case.spec, "interactions": [["PID", "educ"]]}
+    case.expect = "rank_deficient"
+    return case
+
+
 def modechoice() -> Case:
     """statsmodels.datasets.modechoice: chosen (1) or not, per travel mode; mode x income."""
     d = sm.datasets.modechoice.load_pandas().data
@@ -635,6 +671,7 @@ FITS: list[Callable[[], Case]] = [
     spector,
     fair,
     anes96,
+    anes96_codes,
     modechoice,
     star98_weighted,
     breast_cancer_means,
@@ -666,4 +703,5 @@ def all_cases() -> list[Case]:
         out.append(c)
         out.append(c.with_options(c.name, method="firth"))
     out.append(wine_class0().with_options("wine-0", method="ridge", ridge_lambda=1.0))
+    out.append(anes96_empty_cells())
     return out

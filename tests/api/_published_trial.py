@@ -134,6 +134,10 @@ def run_case(api: ApiClient, case: Case, model: str) -> Trial:
 def status_of(trial: Trial) -> str:
     """One word for the table: ok, refused-ok, or what went wrong."""
     case = trial.case
+    if case.expect == "rank_deficient":
+        if trial.status == 422 and trial.body["error"]["code"] == "rank_deficient":
+            return "refused-ok" if remedy_restores_rank(trial) else "REFUSED, remedy fails"
+        return f"WRONG: {trial.status} where the rank deficiency should be refused"
     if case.expect == "separation":
         if trial.status == 422 and trial.body["error"]["code"] == "separation":
             return "refused-ok"
@@ -159,3 +163,16 @@ def status_of(trial: Trial) -> str:
     if case.score_records and (trial.score_status != 200 or not trial.prob_abs <= PROB_ATOL):
         bad.append(f"scores {trial.score_status}")
     return "ok" if not bad else "FAIL " + ", ".join(bad)
+
+
+def remedy_restores_rank(trial: Trial) -> bool:
+    """The rank refusal's remedy ("remove one term of each collinear group") done on the
+    independent design: dropping the first term of each named group leaves full column rank,
+    and no group is named twice."""
+    groups = [tuple(g) for g in trial.body["error"]["details"]["groups"]]
+    if len(set(groups)) != len(groups):
+        return False
+    X = reference_design(trial.case.spec, trial.case.columns)
+    drop = {g[0] for g in groups}
+    kept = X[[c for c in X.columns if c not in drop]].to_numpy()
+    return bool(np.linalg.matrix_rank(kept) == kept.shape[1])

@@ -26,7 +26,15 @@ import numpy as np
 import pytest
 
 from tests.api import _published_cases as pc
-from tests.api._published_trial import COEF_RTOL, PROB_ATOL, SE_RTOL, Trial, fit_body, run_case
+from tests.api._published_trial import (
+    COEF_RTOL,
+    PROB_ATOL,
+    SE_RTOL,
+    Trial,
+    fit_body,
+    remedy_restores_rank,
+    run_case,
+)
 from tests.api.conftest import ApiClient, row_count
 
 pytestmark = pytest.mark.slow
@@ -204,3 +212,26 @@ def test_a_firth_fit_that_stops_early_is_told_a_remedy_that_is_not_firth(api: Ap
     assert err["code"] == "not_converged" and "max_iter" in err["remedy"]
     assert "method='firth'" not in err["remedy"] and 'method="firth"' not in err["remedy"]
     assert row_count(api, "model_version") == 0
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="product: the rank refusal is right, but it names one merged group twice "
+    "(PID=pid3 ~ PID=pid5 ~ 12 interaction terms; same group again) where there are two "
+    "dependencies, so its remedy 'remove one term of each collinear group' leaves the design "
+    "rank deficient",
+)
+def test_empty_interaction_cells_are_refused_with_a_remedy_that_works(api: ApiClient) -> None:
+    # statsmodels.datasets.anes96, PID x educ: no voter with PID 3 or 5 has educ 1, so the
+    # design has rank 54 of 56 (numpy.linalg.matrix_rank of the independent pandas design).
+    case = pc.anes96_empty_cells()
+    X = pc.reference_design(case.spec, case.columns).to_numpy()
+    assert X.shape[1] - np.linalg.matrix_rank(X) == 2
+    trial = run_case(api, case, "empty-cells")
+    assert trial.status == 422, trial.body
+    err = trial.body["error"]
+    assert err["code"] == "rank_deficient" and err["remedy"]
+    named = set(err["details"]["terms"])
+    assert named <= set(pc.reference_design(case.spec, case.columns).columns)
+    assert row_count(api, "model_version") == 0
+    assert remedy_restores_rank(trial)
