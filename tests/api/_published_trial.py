@@ -7,10 +7,13 @@ them and ``tests/benchmarks/trial_published.py`` prints them as a table.
 
 from __future__ import annotations
 
+import io
+import json
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from tests.api._published_cases import (
     Case,
@@ -84,9 +87,28 @@ def fit_body(case: Case) -> dict[str, Any]:
     return {**case.spec, "data": {"columns": case.columns}}
 
 
-def run_case(api: ApiClient, case: Case, model: str) -> Trial:
+def post_fit(api: ApiClient, case: Case, model: str, transport: str = "json") -> Any:
+    """The fit request as JSON columns, or as a multipart upload of the data written by pandas
+    (``csv``: ``DataFrame.to_csv``; ``parquet``: ``DataFrame.to_parquet``) with the spec part."""
+    url = f"/risk-models/{model}/versions"
+    if transport == "json":
+        return api.post(url, json=fit_body(case))
+    df = pd.DataFrame(case.columns)
+    buf = io.BytesIO()
+    if transport == "csv":
+        df.to_csv(buf, index=False)
+    else:
+        df.to_parquet(buf, index=False)
+    return api.post(
+        url,
+        data={"spec": json.dumps(case.spec)},
+        files={"data": (f"{case.name}.{transport}", buf.getvalue(), "application/octet-stream")},
+    )
+
+
+def run_case(api: ApiClient, case: Case, model: str, transport: str = "json") -> Trial:
     """POST the fit; on 201: GET it back, fit the reference, score the records."""
-    r = api.post(f"/risk-models/{model}/versions", json=fit_body(case))
+    r = post_fit(api, case, model, transport)
     trial = Trial(case, r.status_code, r.json())
     if r.status_code != 201:
         return trial

@@ -20,10 +20,12 @@ max(|ref|, 1e-3 max|ref|)), probabilities and interval limits atol 1e-8.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Callable
 
 import numpy as np
 import pytest
+import statsmodels.api as sm
 
 from tests.api import _published_cases as pc
 from tests.api._published_trial import (
@@ -235,3 +237,48 @@ def test_empty_interaction_cells_are_refused_with_a_remedy_that_works(api: ApiCl
     assert named <= set(pc.reference_design(case.spec, case.columns).columns)
     assert row_count(api, "model_version") == 0
     assert remedy_restores_rank(trial)
+
+
+@pytest.mark.parametrize("transport", ["csv", "parquet"])
+def test_an_upload_written_by_pandas_fits_as_the_json_columns(
+    api: ApiClient, transport: str
+) -> None:
+    # statsmodels.datasets.fair written with pandas' to_csv / to_parquet, as a practitioner
+    # would, posted as a multipart upload; reference: statsmodels GLM(Binomial)
+    case = pc.fair()
+    trial = run_case(api, case, f"fair-{transport}", transport=transport)
+    _check_fit(trial)
+
+
+def test_profile_intervals_agree_with_constrained_statsmodels_fits(api: ApiClient) -> None:
+    # statsmodels.datasets.spector. Profile-likelihood limits (Venzon & Moolgavkar 1988):
+    # 2 (l_hat - l_p(c)) = chi2_{1,0.95}, where l_p(c) is statsmodels GLM(Binomial) refitted
+    # with b_j fixed at c (x_j c moved into the offset), root-found with scipy.optimize.brentq.
+    from scipy.optimize import brentq
+    from scipy.stats import chi2
+
+    case = pc.spector().with_options("spector", profile_intervals=True)
+    r = api.post("/risk-models/spector-profile/versions", json=fit_body(case))
+    assert r.status_code == 201, r.text
+    table = r.json()["term_table"]
+    assert table["ci_method"] == "profile-likelihood"
+    names = [t["name"] for t in table["terms"]]
+    a = pc.arrays(case)
+    X = a["X"][names].to_numpy()
+    full = pc.statsmodels_mle(X, a["y"], a["w"], a["offset"])
+    crit = chi2.ppf(0.95, 1)
+
+    def drop(j: int, c: float) -> float:
+        others = np.delete(X, j, axis=1)
+        sub = sm.GLM(a["y"], others, family=sm.families.Binomial(), offset=X[:, j] * c)
+        with warnings.catch_warnings(), np.errstate(over="ignore"):
+            warnings.simplefilter("ignore")  # far trial values of c overflow exp inside IRLS
+            llf = sub.fit(tol=1e-13, maxiter=500).llf
+        return float(2 * (full.objective - llf) - crit)
+
+    for j, t in enumerate(table["terms"]):
+        b, se = full.coef[j], full.se[j]
+        lo = brentq(lambda c, j=j: drop(j, c), b - 6 * se, b, xtol=1e-12)
+        hi = brentq(lambda c, j=j: drop(j, c), b, b + 6 * se, xtol=1e-12)
+        assert t["ci_lower"] == pytest.approx(lo, rel=1e-6, abs=1e-9), t["name"]
+        assert t["ci_upper"] == pytest.approx(hi, rel=1e-6, abs=1e-9), t["name"]
