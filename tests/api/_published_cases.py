@@ -237,10 +237,12 @@ def scipy_penalised(
         g = Xs.T @ (w * (y - mu))
         if method == "firth":
             info = _information(Xs, w, mu)
-            _, logdet = np.linalg.slogdet(info)
+            sign, logdet = np.linalg.slogdet(info)
+            if sign <= 0 or not np.isfinite(logdet):  # far from the maximum: W underflowed
+                return 1e300, -g
             inv = np.linalg.inv(info)
             # sum_i h_i (1/2 - mu_i) x_i = 1/2 tr(I^-1 dI/db), h_i = w_i mu_i (1-mu_i) x_i'I^-1 x_i
-            h = np.einsum("ij,jk,ik->i", Xs, inv, Xs) * w * mu * (1 - mu)
+            h = ((Xs @ inv) * Xs).sum(axis=1) * w * mu * (1 - mu)
             ll += 0.5 * logdet
             g = g + Xs.T @ (h * (0.5 - mu))
         else:
@@ -265,6 +267,9 @@ def scipy_penalised(
             e[j] = eps[j]
             H[:, j] = (value_grad(c + e)[1] - value_grad(c - e)[1]) / (2 * eps[j])
         step = np.linalg.solve(0.5 * (H + H.T), g)
+        f0 = value_grad(c)[0]
+        while value_grad(c - step)[0] > f0 + 1e-12 * abs(f0) and np.max(np.abs(step)) > 1e-15:
+            step = step / 2  # Newton step halved until it does not descend (-objective)
         c = c - step
         if np.max(np.abs(step) / np.maximum(1.0, np.abs(c))) < 1e-13:
             break
@@ -558,6 +563,42 @@ def digits_wide() -> Case:
     return _frame_case("digits-39", "sklearn load_digits", df, [_num(c) for c in names])
 
 
+def digits_all() -> Case:
+    """sklearn load_digits, digit >= 5, every pixel that is ever inked (61 columns): rarely
+    inked pixels separate the classes (quasi-complete separation)."""
+    from sklearn.datasets import load_digits
+
+    d = load_digits()
+    keep = np.flatnonzero(d.data.std(axis=0) > 0)
+    names = [f"px{j}" for j in keep]
+    df = _sk_frame(d.data[:, keep], names, d.target >= 5)
+    case = _frame_case("digits-61", "sklearn load_digits", df, [_num(c) for c in names])
+    case.expect = "separation"
+    return case
+
+
+def separable(X: np.ndarray, y: np.ndarray) -> bool:
+    """Albert & Anderson (1984): the MLE fails to exist iff some d has s_i x_i'd >= 0 for
+    every row (s_i = 2 y_i - 1) with at least one strict. Checked as the feasibility of
+    ``s_i x_i'd >= 0, sum_i s_i x_i'd = 1`` with scipy.optimize.linprog (HiGHS), on columns
+    scaled to unit range (scaling d does not change feasibility)."""
+    from scipy.optimize import linprog
+
+    span = X.max(axis=0) - X.min(axis=0)
+    Xs = X / np.where(span > 0, span, 1.0)
+    A = (2 * y - 1)[:, None] * Xs
+    res = linprog(
+        np.zeros(X.shape[1]),
+        A_ub=-A,
+        b_ub=np.zeros(len(y)),
+        A_eq=A.sum(axis=0)[None, :],
+        b_eq=[1.0],
+        bounds=[(None, None)] * X.shape[1],
+        method="highs",
+    )
+    return bool(res.status == 0)
+
+
 def awkward(seed: int = 11, n: int = 3000) -> Case:
     """Seeded textbook-style awkward data (common practice in risk data): a calendar year
     ~2000, an id-like number ~1e6, a measurement varying in its third decimal, two
@@ -683,7 +724,13 @@ FITS: list[Callable[[], Case]] = [
     gauge_fourth_decimal,
     id_1e9,
 ]
-SEPARATED: list[Callable[[], Case]] = [breast_cancer_all, iris_setosa, wine_class0, singleton_level]
+SEPARATED: list[Callable[[], Case]] = [
+    breast_cancer_all,
+    iris_setosa,
+    wine_class0,
+    digits_all,
+    singleton_level,
+]
 
 
 def all_cases() -> list[Case]:

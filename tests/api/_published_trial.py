@@ -32,6 +32,9 @@ PROB_ATOL = 1e-8
 LOGLIK_ATOL = 1e-6  # (penalised) log-likelihood at the maximum, absolute
 
 
+_REFERENCES: dict[tuple[Any, ...], Reference] = {}
+
+
 @dataclass
 class Trial:
     case: Case
@@ -125,11 +128,15 @@ def run_case(api: ApiClient, case: Case, model: str, transport: str = "json") ->
         return trial
     a = arrays(case)
     Xn = X[trial.names].to_numpy()
-    if case.method == "mle":
-        trial.reference = statsmodels_mle(Xn, a["y"], a["w"], a["offset"])
-    else:
-        lam = float(case.spec.get("options", {}).get("ridge_lambda", 0.0))
-        trial.reference = scipy_penalised(Xn, a["y"], a["w"], a["offset"], case.method, lam)
+    key = (case.name, case.method, json.dumps(case.spec, sort_keys=True), tuple(trial.names))
+    if key not in _REFERENCES:  # the same case on SQLite and PostgreSQL: solve it once
+        if case.method == "mle":
+            ref = statsmodels_mle(Xn, a["y"], a["w"], a["offset"])
+        else:
+            lam = float(case.spec.get("options", {}).get("ridge_lambda", 0.0))
+            ref = scipy_penalised(Xn, a["y"], a["w"], a["offset"], case.method, lam)
+        _REFERENCES[key] = ref
+    trial.reference = _REFERENCES[key]
     trial.coef = np.array([t["estimate"] for t in terms], dtype=float)
     trial.se = np.array(
         [np.nan if t["std_error"] is None else t["std_error"] for t in terms], dtype=float

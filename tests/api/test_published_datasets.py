@@ -95,6 +95,9 @@ def test_maximum_likelihood_agrees_with_statsmodels(
     api: ApiClient, make: Callable[[], pc.Case]
 ) -> None:
     case = make()
+    a = pc.arrays(case)
+    # independent certificate that a maximum exists: no separating direction (scipy linprog)
+    assert not pc.separable(a["X"].to_numpy(), a["y"])
     _check_fit(run_case(api, case, "published"))
 
 
@@ -134,6 +137,8 @@ SEPARATED = [
     pytest.param(pc.iris_setosa, id="iris_setosa"),
     # sklearn load_wine, cultivar 0 vs the rest: complete separation
     pytest.param(pc.wine_class0, id="wine_class0"),
+    # sklearn load_digits, all 61 inked pixels: quasi-complete separation
+    pytest.param(pc.digits_all, id="digits_all"),
     # seeded: a categorical level seen once (common practice: its dummy fits its row exactly)
     pytest.param(pc.singleton_level, id="singleton_level"),
 ]
@@ -144,6 +149,9 @@ def test_separation_is_refused_naming_terms_and_remedy(
     api: ApiClient, make: Callable[[], pc.Case]
 ) -> None:
     case = make()
+    # independent certificate: the separating direction exists (scipy.optimize.linprog)
+    a = pc.arrays(case)
+    assert pc.separable(a["X"].to_numpy(), a["y"])
     r = api.post("/risk-models/separated/versions", json=fit_body(case))
     assert r.status_code == 422, r.text
     err = r.json()["error"]
@@ -166,6 +174,11 @@ FIRTH_FITS = [
     pytest.param(pc.iris_setosa, id="iris_setosa"),
     pytest.param(
         pc.wine_class0, id="wine_class0", marks=pytest.mark.xfail(strict=True, reason=_FIRTH_STUCK)
+    ),
+    pytest.param(
+        pc.digits_all,
+        id="digits_all",
+        marks=pytest.mark.xfail(strict=True, reason=_FIRTH_STUCK),
     ),
     pytest.param(
         pc.singleton_level,
