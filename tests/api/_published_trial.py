@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import io
 import json
+import time
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -40,6 +41,7 @@ class Trial:
     case: Case
     status: int
     body: dict[str, Any]
+    fit_seconds: float = 0.0  # the POST alone
     read_back: int | None = None
     read_back_equal: bool | None = None
     names: list[str] = field(default_factory=list)
@@ -111,8 +113,9 @@ def post_fit(api: ApiClient, case: Case, model: str, transport: str = "json") ->
 
 def run_case(api: ApiClient, case: Case, model: str, transport: str = "json") -> Trial:
     """POST the fit; on 201: GET it back, fit the reference, score the records."""
+    t0 = time.perf_counter()
     r = post_fit(api, case, model, transport)
-    trial = Trial(case, r.status_code, r.json())
+    trial = Trial(case, r.status_code, r.json(), fit_seconds=time.perf_counter() - t0)
     if r.status_code != 201:
         return trial
     body = trial.body
