@@ -20,7 +20,7 @@ there is no intercept). For penalised methods these use the unpenalised loglik a
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Literal
 
 import numpy as np
@@ -30,6 +30,7 @@ from scipy.special import logit
 from service.errors import RankDeficientError
 
 from .blocks import BlockSource, array_blocks, sub_blocks
+from .centring import column_shifts, shift_matrix, shifted_blocks
 from .diagnostics import check_separation
 from .fit_options import FitOptions, fit_options
 from .fit_start import newton_from_scan
@@ -50,6 +51,7 @@ __all__ = [
     "fit_from_scan",
     "fit_logistic",
     "fit_logistic_blocks",
+    "uncentred",
 ]
 
 Method = Literal["mle", "firth", "ridge"]
@@ -148,12 +150,17 @@ def fit_logistic_blocks(
     sample = RowSample() if method == "mle" else None
     light = sample is not None and many_rows
     summary = scan(blocks, n_terms, names, sample, cross_products=not light)
+    shift = column_shifts(summary, intercept_index)
+    if shift is not None:  # columns far from zero: fit on them centred (service.stats.centring)
+        blocks = shifted_blocks(blocks, shift)
+        sample = RowSample() if method == "mle" else None
+        summary = scan(blocks, n_terms, names, sample, cross_products=not light)
     start = None
     if sample is not None:
         start = start_for(method, summary, sample.source(), sample.rows, names, intercept_index)
     if summary.xtwx is None and start is None:
         summary = scan(blocks, n_terms, names)  # the intercept-only start needs X' W X
-    return fit_from_scan(
+    fit = fit_from_scan(
         lambda mask: Objective(blocks, method, ridge_lambda, mask),
         summary,
         opts,
@@ -162,6 +169,20 @@ def fit_logistic_blocks(
         null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
         in_memory=in_memory,
     )
+    return fit if shift is None or intercept_index is None else uncentred(fit, shift, intercept_index)
+
+
+def uncentred(fit: LogisticFit, shift: np.ndarray, intercept_index: int) -> LogisticFit:
+    """A fit made on columns ``x_j - shift_j`` expressed in the original columns:
+    ``coef = A coef'``, ``cov = A cov' A'`` (:mod:`service.stats.centring`); log-likelihoods,
+    counts and tests are the same for both."""
+    A = shift_matrix(shift, intercept_index)
+    cov = fit.cov
+    if np.all(np.isfinite(cov)):
+        cov = A @ cov @ A.T
+        cov = 0.5 * (cov + cov.T)
+    se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    return replace(fit, coef=A @ fit.coef, cov=cov, std_error=se)
 
 
 def fit_from_scan(

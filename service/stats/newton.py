@@ -33,7 +33,17 @@ intercept):
 
 * ``ridge``: ``l(b) - lambda/2 * sum_j m_j b_j^2``; information ``I + lambda diag(m)``
   (Hoerl & Kennard 1970; le Cessie & van Houwelingen 1992 for the logistic model).
-* ``firth``: ``l(b) + 1/2 log det I(b)`` (see :mod:`service.stats.firth`).
+* ``firth``: ``l(b) + 1/2 log det I(b)`` (see :mod:`service.stats.firth`). Its steps use the
+  Fisher information ``I(b)``, not the Hessian of the penalty (which needs the whole hat
+  matrix), as Heinze & Schemper (2002) do. Where the penalty's curvature is as large as the
+  log-likelihood's, the step is too long: for a categorical level seen once, with an event,
+  the one row's ``l* = 3/2 log mu + 1/2 log(1 - mu)`` has curvature ``-2 mu (1 - mu)`` against
+  the information's ``mu (1 - mu)``, so the full step lands as far beyond the maximum as it
+  started before it, and the iterates oscillate for ever with an unchanged ``l*``. Each Firth
+  step is therefore checked with the score at its end (which the pass computes anyway): a
+  step that passed the maximum along its line is shortened to the secant point where the
+  slope along the line vanishes (:func:`_secant_correction`, one more pass when it happens),
+  which makes the iteration a contraction (a line search along the scoring direction).
 
 Coefficients outside the ``free`` mask stay at their starting values, which is how
 constrained refits (profile likelihood, likelihood-ratio tests) are computed with the
@@ -60,6 +70,9 @@ __all__ = ["ROUNDED_STEP_LIMIT", "NewtonResult", "Objective", "State", "newton",
 ROUNDED_STEP_LIMIT = 1e-2
 ROUNDED_MAX_CONDITION = 1e5  # kappa (of the correlation-scaled information) up to which
 ROUNDED_RANGE = (1e-30, 1e30)  # and diagonal entries / total weight in which rounding is safe
+# Firth: a step whose end slope along it is below -SECANT_TRIGGER times its start slope
+# overshot the maximum on its line and is shortened to the secant point (module docstring).
+SECANT_TRIGGER = 0.1
 
 
 @dataclass(frozen=True)
@@ -148,6 +161,29 @@ def _exact(obj: Objective, state: State) -> State:
     return state if again is None else again
 
 
+def _secant_correction(
+    obj: Objective, state: State, new: State, idx: np.ndarray, step: np.ndarray
+) -> State:
+    """Firth: shorten a step that overshot the maximum along its direction (module docstring).
+
+    With ``s0 = g(b)' d`` and ``s1 = g(b + d)' d`` the penalised log-likelihood's slopes along
+    the step ``d`` at its two ends, ``s1 < 0`` means the step passed the maximum on its line;
+    the secant (regula falsi) point ``t = s0 / (s0 - s1)`` is where the slope, linear along
+    the line, is zero. It replaces ``b + d`` when its penalised log-likelihood is no lower.
+    """
+    s0 = float(state.score[idx] @ step)
+    s1 = float(new.score[idx] @ step)
+    if not (s0 > 0.0 and s1 < -SECANT_TRIGGER * s0):
+        return new
+    t = s0 / (s0 - s1)
+    coef = state.coef.copy()
+    coef[idx] += t * step
+    short = obj.evaluate(coef)
+    if short is None or short.penalized_loglik < new.penalized_loglik:
+        return new
+    return short
+
+
 def newton(
     obj: Objective,
     state: State,
@@ -210,6 +246,8 @@ def newton(
                 "step-halving could not increase the log-likelihood",
                 max_step,
             )
+        if obj.method == "firth":
+            new = _secant_correction(obj, state, new, idx, step)
         # A rounded information's error in the step just taken is not squared away: a state
         # reached by such a step must show a step 100 times smaller to count as converged.
         step_tol = tol if state.rounded else 100.0 * tol
