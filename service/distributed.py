@@ -37,7 +37,7 @@ from scipy.special import logit
 from service.errors import SpecError
 from service.stats.blocks import Block, BlockSource, sub_blocks
 from service.stats.firth import half_logdet, hat_score_adjustment
-from service.stats.fit import LogisticFit, Method, fit_from_scan
+from service.stats.fit import LogisticFit, Method, firth_null, fit_from_scan
 from service.stats.fit_options import fit_options
 from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import Objective, State, newton
@@ -266,12 +266,12 @@ class DaskObjective(Objective):
 
 
 def _null(engine: DaskEngine, s: DataSummary, icpt: int | None, method: str) -> tuple[float, float]:
-    """(MLE, penalised) log-likelihood of the intercept-only model, as the local engine does."""
+    """(MLE, penalised) log-likelihood of the intercept-only model, as the local engine does
+    (Firth: under the full model's penalty, :func:`~service.stats.fit.firth_null`)."""
     if icpt is None:
         ll = engine.totals([], np.zeros(0), want=False).loglik
-        return ll, ll
-    start = np.array([logit(s.n_events / s.sum_weights)])
-    if s.has_offset:
+    elif s.has_offset:
+        start = np.array([logit(s.n_events / s.sum_weights)])
         obj = DaskObjective(engine, [icpt], "mle", 0.0, np.zeros(1))
         st = obj.evaluate(start)
         ll = (
@@ -284,10 +284,8 @@ def _null(engine: DaskEngine, s: DataSummary, icpt: int | None, method: str) -> 
         ll = s.n_events * np.log(ybar) + (s.sum_weights - s.n_events) * np.log1p(-ybar)
     if method != "firth":
         return float(ll), float(ll)
-    fobj = DaskObjective(engine, [icpt], "firth", 0.0, np.zeros(1))
-    fst = fobj.evaluate(start)
-    pen = newton(fobj, fst, np.ones(1, bool), max_iter=100, tol=1e-12).state if fst else None
-    return float(ll), float(pen.penalized_loglik) if pen else float("nan")
+    full = DaskObjective(engine, None, "firth", 0.0, np.ones(s.xtw.shape[0]))
+    return float(ll), firth_null(full, s, icpt)
 
 
 def fit_logistic_dask(

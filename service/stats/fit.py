@@ -15,6 +15,9 @@ log-likelihood is 0); ``aic = -2 loglik + 2 p``; ``bic = -2 loglik + p log(sum_w
 (``sum_weights = n_obs`` without weights); McFadden's ``R^2 = 1 - loglik / null_loglik``.
 The null model is intercept-only with the same weights and offset (offset-only if
 there is no intercept). For penalised methods these use the unpenalised loglik and p.
+Firth's penalised null log-likelihood (its global likelihood-ratio test) is the full
+model's penalised log-likelihood restricted to the intercept, the full model's penalty
+kept (:func:`firth_null`), the same rule as its drop-term tests.
 """
 
 from __future__ import annotations
@@ -44,10 +47,13 @@ from .warm_start import (
 )
 
 __all__ = [
+    "FIRTH_GLOBAL_TEST_RULE",
     "LogisticFit",
     "Method",
     "constrained_fit",
     "finish_fit",
+    "firth_null",
+    "global_test_rule",
     "fit_from_scan",
     "fit_logistic",
     "fit_logistic_blocks",
@@ -83,7 +89,8 @@ class LogisticFit:
     mcfadden_r2: float
     warnings: tuple[str, ...]
     intercept_index: int | None = 0
-    null_penalized_loglik: float = float("nan")  # intercept-only, same penalty (Firth LR tests)
+    # intercept-only under the full model's penalty (Firth LR tests, FIRTH_GLOBAL_TEST_RULE)
+    null_penalized_loglik: float = float("nan")
 
 
 def _null_loglik(
@@ -92,9 +99,8 @@ def _null_loglik(
     """(unpenalised MLE, penalised) log-likelihood of the intercept-only model."""
     if intercept_index is None:
         ll = loglik_pass(sub_blocks(blocks, []), np.zeros(0), want_info=False).loglik
-        return ll, ll
-    null_blocks = sub_blocks(blocks, [intercept_index])
-    if s.has_offset:
+    elif s.has_offset:
+        null_blocks = sub_blocks(blocks, [intercept_index])
         obj = Objective(null_blocks, "mle", 0.0, np.zeros(1))
         start = np.array([logit(s.n_events / s.sum_weights)])
         st = obj.evaluate(start)
@@ -108,10 +114,49 @@ def _null_loglik(
         ll = s.n_events * np.log(ybar) + (s.sum_weights - s.n_events) * np.log1p(-ybar)
     if method != "firth":
         return float(ll), float(ll)
-    fobj = Objective(null_blocks, "firth", 0.0, np.zeros(1))
-    fst = fobj.evaluate(np.array([logit(s.n_events / s.sum_weights)]))
-    pen = newton(fobj, fst, np.ones(1, bool), max_iter=100, tol=1e-12).state if fst else None
-    return float(ll), float(pen.penalized_loglik) if pen else float("nan")
+    p = s.xtw.shape[0]
+    return float(ll), firth_null(Objective(blocks, "firth", 0.0, np.ones(p)), s, intercept_index)
+
+
+# The rule of Firth's global likelihood-ratio test, stored with the fit statistics.
+FIRTH_GLOBAL_TEST_RULE = (
+    "null model fitted under the full model's penalty: l(b) + 1/2 log det I_full(b) maximised "
+    "over the intercept with every other coefficient 0 (Heinze & Schemper 2002), as in the "
+    "drop-term tests"
+)
+
+
+def global_test_rule(method: str) -> str:
+    """How the null model of the global likelihood-ratio test is fitted, for ``method``."""
+    if method == "firth":
+        return FIRTH_GLOBAL_TEST_RULE
+    if method == "ridge":
+        return (
+            "null model: intercept-only maximum likelihood (the ridge penalty leaves the "
+            "intercept free); statistic from the penalised log-likelihoods, chi2 approximate"
+        )
+    return "null model: intercept-only maximum likelihood, same weights and offset"
+
+
+def firth_null(full: Objective, s: DataSummary, intercept_index: int | None) -> float:
+    """Firth's null model under the full model's penalty (every engine).
+
+    Maximises ``l(b) + 1/2 log det I(b)``, ``I`` the *full* model's information ``X'WX``, over
+    the intercept alone with every other coefficient held at 0 (offset-only, with no free
+    coefficient, without an intercept), as the drop-term tests restrict the full model
+    (Heinze & Schemper 2002). ``full`` is the Firth objective on all columns.
+    """
+    p = s.xtw.shape[0]
+    coef = np.zeros(p)
+    free = np.zeros(p, bool)
+    if intercept_index is not None:
+        coef[intercept_index] = logit(s.n_events / s.sum_weights)
+        free[intercept_index] = True
+    st = full.evaluate(coef)
+    if st is None:
+        return float("nan")
+    res = newton(full, st, free, max_iter=100, tol=1e-12)
+    return float(res.state.penalized_loglik) if res.converged else float("nan")
 
 
 def fit_logistic_blocks(
@@ -237,7 +282,10 @@ def finish_fit(
     stop = str(res.stop_reason)
     warnings: list[str] = []
     if not converged:
-        stop += '; try a larger max_iter, or method="firth" / "ridge" if estimates diverge'
+        if method == "mle":
+            stop += '; diverging estimates mean quasi-separation: method="firth"'
+        elif method == "firth":
+            stop += "; look for nearly collinear terms or a feature on an extreme scale"
         warnings.append("not converged: " + stop)
     if st.n_extreme:
         warnings.append(f"{st.n_extreme} fitted probabilities are numerically 0 or 1")
