@@ -17,10 +17,10 @@ from service.schemas.common import StrictModel
 
 __all__ = [
     "CellValue",
+    "DropTermTestPublic",
     "FeatureSpec",
     "FitData",
     "FitOptions",
-    "DropTermTestPublic",
     "FitStatisticsPublic",
     "LRTestPublic",
     "LineagePublic",

@@ -53,10 +53,10 @@ __all__ = [
     "constrained_fit",
     "finish_fit",
     "firth_null",
-    "global_test_rule",
     "fit_from_scan",
     "fit_logistic",
     "fit_logistic_blocks",
+    "global_test_rule",
     "uncentred",
 ]
 
@@ -214,7 +214,9 @@ def fit_logistic_blocks(
         null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
         in_memory=in_memory,
     )
-    return fit if shift is None or intercept_index is None else uncentred(fit, shift, intercept_index)
+    return (
+        fit if shift is None or intercept_index is None else uncentred(fit, shift, intercept_index)
+    )
 
 
 def uncentred(fit: LogisticFit, shift: np.ndarray, intercept_index: int) -> LogisticFit:

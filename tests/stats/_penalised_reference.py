@@ -59,7 +59,7 @@ class Penalised:
         mu = 1.0 / (1.0 + np.exp(-eta))
         v = self.w * mu * (1.0 - mu)
         info = self.Z.T @ (self.Z * v[:, None])
-        sign, logdet = np.linalg.slogdet(info)
+        _sign, logdet = np.linalg.slogdet(info)
         ll = float(self.w @ (self.y * eta - np.logaddexp(0.0, eta)))
         A = np.linalg.solve(info, self.Z.T)  # I^-1 Z'
         h = v * np.einsum("ij,ji->i", self.Z, A)  # hat diagonal
@@ -70,11 +70,14 @@ class Penalised:
         """``l*(b)`` in the original columns."""
         return self._parts(np.linalg.solve(self.M, b))[0] + self.logdet_shift
 
-    def maximise(self, free: np.ndarray | None = None, fixed: np.ndarray | None = None) -> np.ndarray:
+    def maximise(
+        self, free: np.ndarray | None = None, fixed: np.ndarray | None = None
+    ) -> np.ndarray:
         """The maximiser in the original columns (``free`` mask; others at ``fixed``)."""
         p = self.Z.shape[1]
         free = np.ones(p, bool) if free is None else free
         base = np.zeros(p) if fixed is None else np.linalg.solve(self.M, fixed)
+
         # restricting b (original) = restricting c only when M maps free to free: the tests
         # fix non-intercept coefficients at 0, which M (diagonal but for the intercept row)
         # keeps at 0; the intercept stays free.
