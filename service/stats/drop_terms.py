@@ -45,7 +45,7 @@ from service.errors import SpecError
 
 from .blocks import BlockSource
 from .drop_groups import DropGroup
-from .fit import LogisticFit, constrained_fit
+from .fit import LogisticFit, centred_view, constrained_fit
 from .likelihood import Totals, loglik_pass
 from .newton import Objective, State
 from .score_pass import score_pass
@@ -118,6 +118,7 @@ def drop_term_tests(
                 remedy=f"use column indices in 0..{p - 1} other than the intercept",
             )
         checked.append((name, idx))
+    blocks, fit = centred_view(blocks, fit)  # no group holds the intercept (checked above)
     info = _full_information(fit)
     by_chord: dict[str, float] = {}
     if info is not None and fit.method != "firth":

@@ -28,17 +28,17 @@ from typing import Literal
 
 import numpy as np
 from scipy.linalg import cho_factor, cho_solve
-from scipy.special import logit
 
 from service.errors import RankDeficientError
 
-from .blocks import BlockSource, array_blocks, sub_blocks
+from .blocks import BlockSource, array_blocks
 from .centring import column_shifts, shift_matrix, shifted_blocks
 from .diagnostics import check_separation
 from .fit_options import FitOptions, fit_options
 from .fit_start import newton_from_scan
-from .likelihood import DataSummary, loglik_pass, scan
+from .likelihood import DataSummary, scan
 from .newton import NewtonResult, Objective, State, newton
+from .null_model import FIRTH_GLOBAL_TEST_RULE, firth_null, global_test_rule, null_logliks
 from .row_sample import RowSample
 from .warm_start import (
     WARM_START_MIN_ROWS,
@@ -48,8 +48,10 @@ from .warm_start import (
 
 __all__ = [
     "FIRTH_GLOBAL_TEST_RULE",
+    "Centring",
     "LogisticFit",
     "Method",
+    "centred_view",
     "constrained_fit",
     "finish_fit",
     "firth_null",
@@ -61,6 +63,18 @@ __all__ = [
 ]
 
 Method = Literal["mle", "firth", "ridge"]
+
+
+@dataclass(frozen=True)
+class Centring:
+    """A fit made on centred columns (:mod:`service.stats.centring`): the constants subtracted
+    (p,) and the estimate and covariance in those columns, which refits (drop-term tests,
+    profiles) start from: converting back from the original columns would lose the digits
+    the centring saved."""
+
+    shift: np.ndarray
+    coef: np.ndarray
+    cov: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -91,72 +105,7 @@ class LogisticFit:
     intercept_index: int | None = 0
     # intercept-only under the full model's penalty (Firth LR tests, FIRTH_GLOBAL_TEST_RULE)
     null_penalized_loglik: float = float("nan")
-
-
-def _null_loglik(
-    blocks: BlockSource, s: DataSummary, intercept_index: int | None, method: str
-) -> tuple[float, float]:
-    """(unpenalised MLE, penalised) log-likelihood of the intercept-only model."""
-    if intercept_index is None:
-        ll = loglik_pass(sub_blocks(blocks, []), np.zeros(0), want_info=False).loglik
-    elif s.has_offset:
-        null_blocks = sub_blocks(blocks, [intercept_index])
-        obj = Objective(null_blocks, "mle", 0.0, np.zeros(1))
-        start = np.array([logit(s.n_events / s.sum_weights)])
-        st = obj.evaluate(start)
-        ll = (
-            newton(obj, st, np.ones(1, bool), max_iter=100, tol=1e-12).state.loglik
-            if st
-            else -np.inf
-        )
-    else:
-        ybar = s.n_events / s.sum_weights
-        ll = s.n_events * np.log(ybar) + (s.sum_weights - s.n_events) * np.log1p(-ybar)
-    if method != "firth":
-        return float(ll), float(ll)
-    p = s.xtw.shape[0]
-    return float(ll), firth_null(Objective(blocks, "firth", 0.0, np.ones(p)), s, intercept_index)
-
-
-# The rule of Firth's global likelihood-ratio test, stored with the fit statistics.
-FIRTH_GLOBAL_TEST_RULE = (
-    "null model fitted under the full model's penalty: l(b) + 1/2 log det I_full(b) maximised "
-    "over the intercept with every other coefficient 0 (Heinze & Schemper 2002), as in the "
-    "drop-term tests"
-)
-
-
-def global_test_rule(method: str) -> str:
-    """How the null model of the global likelihood-ratio test is fitted, for ``method``."""
-    if method == "firth":
-        return FIRTH_GLOBAL_TEST_RULE
-    if method == "ridge":
-        return (
-            "null model: intercept-only maximum likelihood (the ridge penalty leaves the "
-            "intercept free); statistic from the penalised log-likelihoods, chi2 approximate"
-        )
-    return "null model: intercept-only maximum likelihood, same weights and offset"
-
-
-def firth_null(full: Objective, s: DataSummary, intercept_index: int | None) -> float:
-    """Firth's null model under the full model's penalty (every engine).
-
-    Maximises ``l(b) + 1/2 log det I(b)``, ``I`` the *full* model's information ``X'WX``, over
-    the intercept alone with every other coefficient held at 0 (offset-only, with no free
-    coefficient, without an intercept), as the drop-term tests restrict the full model
-    (Heinze & Schemper 2002). ``full`` is the Firth objective on all columns.
-    """
-    p = s.xtw.shape[0]
-    coef = np.zeros(p)
-    free = np.zeros(p, bool)
-    if intercept_index is not None:
-        coef[intercept_index] = logit(s.n_events / s.sum_weights)
-        free[intercept_index] = True
-    st = full.evaluate(coef)
-    if st is None:
-        return float("nan")
-    res = newton(full, st, free, max_iter=100, tol=1e-12)
-    return float(res.state.penalized_loglik) if res.converged else float("nan")
+    centring: Centring | None = None  # set when columns far from zero were centred
 
 
 def fit_logistic_blocks(
@@ -211,7 +160,7 @@ def fit_logistic_blocks(
         opts,
         start=start,
         separation_blocks=lambda: blocks,
-        null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
+        null_logliks=lambda: null_logliks(blocks, summary, intercept_index, method),
         in_memory=in_memory,
     )
     return (
@@ -229,7 +178,19 @@ def uncentred(fit: LogisticFit, shift: np.ndarray, intercept_index: int) -> Logi
         cov = A @ cov @ A.T
         cov = 0.5 * (cov + cov.T)
     se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-    return replace(fit, coef=A @ fit.coef, cov=cov, std_error=se)
+    centring = Centring(shift, fit.coef, fit.cov)
+    return replace(fit, coef=A @ fit.coef, cov=cov, std_error=se, centring=centring)
+
+
+def centred_view(blocks: BlockSource, fit: LogisticFit) -> tuple[BlockSource, LogisticFit]:
+    """``(blocks, fit)`` in the centred columns the fit was made on (as they are if it was not
+    centred). Restricting non-intercept coefficients is the same in both parametrisations
+    (``b_j = b'_j``), and the (penalised) log-likelihood is the same function, so refits that
+    fix only such coefficients may run here, where the information is well conditioned."""
+    c = fit.centring
+    if c is None:
+        return blocks, fit
+    return shifted_blocks(blocks, c.shift), replace(fit, coef=c.coef, cov=c.cov, centring=None)
 
 
 def fit_from_scan(
@@ -362,8 +323,19 @@ def constrained_fit(
     """Maximise the fit's (penalised) log-likelihood with ``coef[j] = fixed[j]`` held.
 
     Starts at ``start`` (default the fit's estimate); the penalty is the full-model one (Firth: the
-    whole information matrix), as used by profile intervals and LR tests.
+    whole information matrix), as used by profile intervals and LR tests. For a fit made on
+    centred columns (``fit.centring``) with the intercept free, the refit runs in those columns
+    (:func:`centred_view`) and the state's ``coef`` is returned in the original ones (its
+    score and information stay in the centred ones). With the intercept fixed the original
+    columns are well conditioned (the intercept is what they are collinear with).
     """
+    icpt = fit.intercept_index
+    if fit.centring is not None and icpt is not None and icpt not in fixed:
+        A = shift_matrix(fit.centring.shift, icpt)
+        cblocks, cfit = centred_view(blocks, fit)
+        cstart = None if start is None else np.linalg.solve(A, start)
+        st = constrained_fit(cblocks, cfit, fixed, start=cstart, tol=tol)
+        return replace(st, coef=A @ st.coef)
     p = fit.coef.shape[0]
     mask = np.ones(p)
     if fit.intercept_index is not None:
