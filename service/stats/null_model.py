@@ -73,8 +73,17 @@ def firth_null(full: Objective, s: DataSummary, intercept_index: int | None) -> 
     the intercept alone with every other coefficient held at 0 (offset-only, with no free
     coefficient, without an intercept), as the drop-term tests restrict the full model
     (Heinze & Schemper 2002). ``full`` is the Firth objective on all columns.
+
+    Without an offset the linear predictor is the same constant ``b0`` on every row, so
+    ``I(b0) = v S`` with ``v = mu (1 - mu)``, ``mu = expit(b0)`` and ``S = X' diag(w) X`` the
+    scan's cross-product: ``l*(b0) = E log mu + (sw - E) log(1 - mu) + p/2 log v + 1/2 log det S``
+    (``E`` the weighted events), whose score ``E - sw mu + p/2 (1 - 2 mu)`` vanishes at
+    ``mu = (E + p/2) / (sw + p)``: no pass is needed (:func:`_closed_form`). With an offset,
+    Newton over the intercept on the full objective.
     """
     p = s.xtw.shape[0]
+    if not s.has_offset and s.xtwx is not None:
+        return _closed_form(s, intercept_index)
     coef = np.zeros(p)
     free = np.zeros(p, bool)
     if intercept_index is not None:
@@ -85,3 +94,16 @@ def firth_null(full: Objective, s: DataSummary, intercept_index: int | None) -> 
         return float("nan")
     res = newton(full, st, free, max_iter=100, tol=1e-12)
     return float(res.state.penalized_loglik) if res.converged else float("nan")
+
+
+def _closed_form(s: DataSummary, intercept_index: int | None) -> float:
+    """:func:`firth_null` without an offset, from the scan's sums (see there)."""
+    assert s.xtwx is not None
+    p = s.xtw.shape[0]
+    sign, logdet_s = np.linalg.slogdet(s.xtwx)
+    if sign <= 0:
+        return float("nan")
+    sw, events = s.sum_weights, s.n_events
+    mu = 0.5 if intercept_index is None else (events + 0.5 * p) / (sw + p)
+    ll = events * np.log(mu) + (sw - events) * np.log1p(-mu)
+    return float(ll + 0.5 * (logdet_s + p * np.log(mu * (1.0 - mu))))

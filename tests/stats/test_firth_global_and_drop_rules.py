@@ -106,3 +106,12 @@ def test_firth_drop_terms_with_interactions_match_scipy() -> None:
         free[list(groups[t.name].columns)] = False
         restricted = ref.value(ref.maximise(free=free))
         assert t.statistic == pytest.approx(2 * (top - restricted), rel=1e-6, abs=1e-7)
+
+
+def test_firth_null_without_intercept_is_the_full_penalty_at_zero() -> None:
+    # no intercept: the null model has no free coefficient, l(0) + 1/2 log det I_full(0)
+    X, y, _, _ = _singleton(44)
+    X = X[:, 1:]
+    fit = fit_logistic(X, y, method="firth", intercept_index=None)
+    ref = Penalised(X, y, intercept=None)  # the definition, evaluated directly
+    assert fit.null_penalized_loglik == pytest.approx(ref.value(np.zeros(3)), abs=1e-9)
