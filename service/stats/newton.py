@@ -44,6 +44,13 @@ intercept):
   step that passed the maximum along its line is shortened to the secant point where the
   slope along the line vanishes (:func:`_secant_correction`, one more pass when it happens),
   which makes the iteration a contraction (a line search along the scoring direction).
+  Where levels of different sizes (or separation and a large raw-unit slope) make the
+  mismatch differ between directions, a line search alone converges slowly, so Firth's steps
+  solve ``(I + C) d = U*`` with ``C`` a secant (SR1) estimate of the penalty's curvature
+  learned from the score changes (:func:`_curvature_update`; dropped whenever ``I + C`` is not
+  positive definite). Convergence is judged as for every method (the decrement and the
+  largest step in units of ``|coef| + se``, both invariant to the units of a column); the
+  covariance stays ``I^-1`` at the estimate (Heinze & Schemper 2002).
 
 Coefficients outside the ``free`` mask stay at their starting values, which is how
 constrained refits (profile likelihood, likelihood-ratio tests) are computed with the
@@ -161,6 +168,35 @@ def _exact(obj: Objective, state: State) -> State:
     return state if again is None else again
 
 
+def _factor(info: np.ndarray, corr: np.ndarray) -> tuple[np.ndarray, bool]:
+    """Cholesky factor of ``info + corr``, or of ``info`` alone when that is not positive
+    definite (raises :class:`LinAlgError` if neither is)."""
+    if np.any(corr):
+        try:
+            return cho_factor(info + corr, lower=True, check_finite=False)  # type: ignore[no-any-return]
+        except LinAlgError:
+            corr[:] = 0.0
+    return cho_factor(info, lower=True, check_finite=False)  # type: ignore[no-any-return]
+
+
+def _curvature_update(corr: np.ndarray, old: State, new: State, idx: np.ndarray) -> np.ndarray:
+    """Firth: symmetric rank-one secant update of ``C``, the estimate of the penalty's part of
+    the negative Hessian, so that the steps solve ``(I + C) d = U*`` (a structured
+    quasi-Newton method: the exact part ``I`` recomputed at every point, the rest learned
+    from the score changes; Dennis, Gay & Welsch 1981, *ACM TOMS* 7:348-368, for the same
+    split in least squares). The secant condition ``(I_new + C_new) s = y`` with step ``s``
+    and ``y = U*_old - U*_new`` gives ``r = y - I_new s - C s`` and
+    ``C_new = C + r r' / (r' s)``, skipped when ``|r' s|`` is tiny (Nocedal & Wright,
+    *Numerical Optimization*, 2006, sec. 6.2)."""
+    s = new.coef[idx] - old.coef[idx]
+    y = old.score[idx] - new.score[idx]
+    r = y - new.info[np.ix_(idx, idx)] @ s - corr @ s
+    rs = float(r @ s)
+    if not np.all(np.isfinite(r)) or abs(rs) <= 1e-8 * float(np.linalg.norm(r) * np.linalg.norm(s)):
+        return corr
+    return corr + np.outer(r, r) / rs
+
+
 def _secant_correction(
     obj: Objective, state: State, new: State, idx: np.ndarray, step: np.ndarray
 ) -> State:
@@ -201,12 +237,13 @@ def newton(
     idx = np.flatnonzero(free)
     max_step = np.inf
     step_tol = 100.0 * tol
+    corr = np.zeros((idx.size, idx.size))  # Firth: secant estimate of the penalty's curvature
     for iteration in range(max_iter + 1):
         if idx.size == 0:
             return NewtonResult(_exact(obj, state), True, iteration, "no free coefficients", 0.0)
         dev = -2.0 * state.penalized_loglik
         try:
-            chol = cho_factor(state.info[np.ix_(idx, idx)], lower=True, check_finite=False)
+            chol = _factor(state.info[np.ix_(idx, idx)], corr)
         except LinAlgError:
             if state.rounded:  # rounding may have cost positive definiteness
                 state, rounded = _exact(obj, state), False
@@ -248,6 +285,7 @@ def newton(
             )
         if obj.method == "firth":
             new = _secant_correction(obj, state, new, idx, step)
+            corr = _curvature_update(corr, state, new, idx)
         # A rounded information's error in the step just taken is not squared away: a state
         # reached by such a step must show a step 100 times smaller to count as converged.
         step_tol = tol if state.rounded else 100.0 * tol

@@ -66,6 +66,11 @@ class Penalised:
         grad = self.Z.T @ (self.w * (self.y - mu) + h * (0.5 - mu))
         return ll + 0.5 * logdet, grad
 
+    def gradient(self, b: np.ndarray) -> np.ndarray:
+        """The penalised score with respect to the standardised coefficients, at ``b``
+        (original columns): zero at the maximum, on a scale that does not depend on units."""
+        return self._parts(np.linalg.solve(self.M, b))[1]
+
     def value(self, b: np.ndarray) -> float:
         """``l*(b)`` in the original columns."""
         return self._parts(np.linalg.solve(self.M, b))[0] + self.logdet_shift
