@@ -80,6 +80,9 @@ ROUNDED_RANGE = (1e-30, 1e30)  # and diagonal entries / total weight in which ro
 # Firth: a step whose end slope along it is below -SECANT_TRIGGER times its start slope
 # overshot the maximum on its line and is shortened to the secant point (module docstring).
 SECANT_TRIGGER = 0.1
+# Firth: the penalty's curvature is learned (SR1) only from steps this small (scaled as in the
+# convergence test); larger ones mostly measure the log-likelihood's third derivative.
+CURVATURE_STEP_LIMIT = 0.1
 
 
 @dataclass(frozen=True)
@@ -184,13 +187,16 @@ def _curvature_update(corr: np.ndarray, old: State, new: State, idx: np.ndarray)
     the negative Hessian, so that the steps solve ``(I + C) d = U*`` (a structured
     quasi-Newton method: the exact part ``I`` recomputed at every point, the rest learned
     from the score changes; Dennis, Gay & Welsch 1981, *ACM TOMS* 7:348-368, for the same
-    split in least squares). The secant condition ``(I_new + C_new) s = y`` with step ``s``
-    and ``y = U*_old - U*_new`` gives ``r = y - I_new s - C s`` and
+    split in least squares). The secant condition ``(I_bar + C_new) s = y`` with step ``s``,
+    ``y = U*_old - U*_new`` and ``I_bar`` the mean of the informations at the step's ends
+    (the trapezoid rule for the log-likelihood's part, so that its change along the step is
+    not taken for the penalty's) gives ``r = y - I_bar s - C s`` and
     ``C_new = C + r r' / (r' s)``, skipped when ``|r' s|`` is tiny (Nocedal & Wright,
     *Numerical Optimization*, 2006, sec. 6.2)."""
     s = new.coef[idx] - old.coef[idx]
     y = old.score[idx] - new.score[idx]
-    r = y - new.info[np.ix_(idx, idx)] @ s - corr @ s
+    info = 0.5 * (old.info[np.ix_(idx, idx)] + new.info[np.ix_(idx, idx)])  # trapezoid rule
+    r = y - info @ s - corr @ s
     rs = float(r @ s)
     if not np.all(np.isfinite(r)) or abs(rs) <= 1e-8 * float(np.linalg.norm(r) * np.linalg.norm(s)):
         return corr
@@ -285,7 +291,8 @@ def newton(
             )
         if obj.method == "firth":
             new = _secant_correction(obj, state, new, idx, step)
-            corr = _curvature_update(corr, state, new, idx)
+            if max_step <= CURVATURE_STEP_LIMIT:
+                corr = _curvature_update(corr, state, new, idx)
         # A rounded information's error in the step just taken is not squared away: a state
         # reached by such a step must show a step 100 times smaller to count as converged.
         step_tol = tol if state.rounded else 100.0 * tol
