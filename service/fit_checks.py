@@ -19,7 +19,7 @@ __all__ = [
     "require_converged",
 ]
 
-RESERVED_NAMES = frozenset({"key"})  # the record field of a client's own score id
+RESERVED_NAMES = frozenset({"key", "passthrough"})  # a score record's own fields: id, echo
 
 
 def needed_columns(spec: VersionSpec) -> list[str]:
@@ -35,7 +35,8 @@ def check_spec(spec: VersionSpec) -> None:
     for i, f in enumerate(spec.features):
         if f.name in RESERVED_NAMES:
             raise SpecError(
-                f"{f.name!r} is reserved for the client's record key",
+                f"{f.name!r} is reserved: score records use it for the client's own "
+                "record key or passthrough values",
                 field=f"features[{i}].name",
                 value=f.name,
                 remedy="rename the column, e.g. to segment_key",

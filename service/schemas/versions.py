@@ -8,10 +8,11 @@ spec is the JSON form part ``spec`` and the data is the file part ``data`` (CSV 
 
 from __future__ import annotations
 
+import unicodedata
 from datetime import datetime
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from service.schemas.common import StrictModel
 
@@ -53,6 +54,14 @@ class FeatureSpec(StrictModel):
     knots: int | list[float] | None = Field(
         None, description="Spline knots: a count 3..7 or quantiles in (0, 1)."
     )
+
+    @field_validator("reference", "levels")
+    @classmethod
+    def _nfc(cls, v: str | list[str] | None) -> str | list[str] | None:
+        """Levels are matched in Unicode NFC, as the data's text is (fits and scoring)."""
+        if isinstance(v, str):
+            return unicodedata.normalize("NFC", v)
+        return None if v is None else [unicodedata.normalize("NFC", x) for x in v]
 
 
 class FitOptions(StrictModel):
