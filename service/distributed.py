@@ -17,6 +17,10 @@ read). With ``persist=True`` (default) each partition is loaded once into worker
 (``client.submit``) and every pass runs where its rows live; with ``persist=False`` each
 pass re-reads the partition (data larger than the cluster's memory).
 
+Columns far from zero are centred on the workers for the fit, as in a local fit
+(:mod:`service.stats.centring`: the first scan's means decide, a second scan follows), and
+the estimate is returned in the original columns.
+
 The separation check of maximum likelihood (a linear programme over all rows) runs only
 where the single-machine engine runs it: for small data or, when Newton shows the
 divergence signature, up to 2 million cells; only then are rows gathered to the client.
@@ -36,8 +40,9 @@ from scipy.special import logit
 
 from service.errors import SpecError
 from service.stats.blocks import Block, BlockSource, sub_blocks
+from service.stats.centring import column_shifts, shifted_blocks
 from service.stats.firth import half_logdet, hat_score_adjustment
-from service.stats.fit import LogisticFit, Method, fit_from_scan
+from service.stats.fit import LogisticFit, Method, firth_null, fit_from_scan, uncentred
 from service.stats.fit_options import fit_options
 from service.stats.likelihood import DataSummary, Totals, loglik_pass, scan
 from service.stats.newton import Objective, State, newton
@@ -113,8 +118,10 @@ def file_partitions(
 # --- work done on the workers (module-level functions: picklable) ---
 
 
-def _source(part: Any, keep: Sequence[int] | None) -> BlockSource:
+def _source(part: Any, keep: Sequence[int] | None, shift: np.ndarray | None) -> BlockSource:
     blocks: BlockSource = part() if callable(part) else (lambda: iter(part))
+    if shift is not None:  # columns far from zero, centred (service.stats.centring)
+        blocks = shifted_blocks(blocks, shift)
     return blocks if keep is None else sub_blocks(blocks, keep)
 
 
@@ -128,25 +135,36 @@ def _cross(s: DataSummary) -> np.ndarray:
 
 
 def _scan(
-    part: Any, p: int, names: tuple[str, ...], sample_rows: int
+    part: Any, p: int, names: tuple[str, ...], sample_rows: int, shift: np.ndarray | None
 ) -> tuple[DataSummary, list[Block]]:
     sample = RowSample(max_rows=sample_rows)
-    summary = scan(_source(part, None), p, names, sample)
+    summary = scan(_source(part, None, shift), p, names, sample)
     return summary, list(sample.source()())
 
 
 def _totals(
-    part: Any, keep: Sequence[int] | None, coef: np.ndarray, want: bool, rounded: bool
+    part: Any,
+    keep: Sequence[int] | None,
+    coef: np.ndarray,
+    want: bool,
+    rounded: bool,
+    shift: np.ndarray | None,
 ) -> Totals:
-    return loglik_pass(_source(part, keep), coef, want_info=want, rounded=rounded)
+    return loglik_pass(_source(part, keep, shift), coef, want_info=want, rounded=rounded)
 
 
-def _hat(part: Any, keep: Sequence[int] | None, coef: np.ndarray, chol: np.ndarray) -> np.ndarray:
-    return hat_score_adjustment(_source(part, keep), coef, chol)[0]
+def _hat(
+    part: Any,
+    keep: Sequence[int] | None,
+    coef: np.ndarray,
+    chol: np.ndarray,
+    shift: np.ndarray | None,
+) -> np.ndarray:
+    return hat_score_adjustment(_source(part, keep, shift), coef, chol)[0]
 
 
-def _rows(part: Any) -> list[Block]:
-    return list(_source(part, None)())
+def _rows(part: Any, shift: np.ndarray | None) -> list[Block]:
+    return list(_source(part, None, shift)())
 
 
 class DaskEngine:
@@ -162,6 +180,7 @@ class DaskEngine:
             )
         self.client = client
         self.persist = persist
+        self.shift: np.ndarray | None = None  # column centring (service.stats.centring)
         self.parts: list[Any] = (
             [client.submit(_load, part, pure=False) for part in partitions]
             if persist
@@ -179,7 +198,7 @@ class DaskEngine:
         so the client receives about as many rows as a local fit samples.
         """
         cap = max(1024, MAX_SAMPLE_ROWS // len(self.parts))
-        scanned: list[tuple[DataSummary, list[Block]]] = self._map(_scan, p, names, cap)
+        scanned: list[tuple[DataSummary, list[Block]]] = self._map(_scan, p, names, cap, self.shift)
         parts = [s for s, _ in scanned]
         sample = [b for _, blocks in scanned for b in blocks]
         return self._summed(parts), sample
@@ -206,7 +225,7 @@ class DaskEngine:
         *,
         rounded: bool = False,
     ) -> Totals:
-        parts: list[Totals] = self._map(_totals, keep, coef, want, rounded)
+        parts: list[Totals] = self._map(_totals, keep, coef, want, rounded, self.shift)
         return Totals(
             float(sum(t.loglik for t in parts)),
             sum((t.score for t in parts), np.zeros_like(coef)),
@@ -216,13 +235,13 @@ class DaskEngine:
         )
 
     def hat(self, keep: Sequence[int] | None, coef: np.ndarray, chol: np.ndarray) -> np.ndarray:
-        return sum(self._map(_hat, keep, coef, chol), np.zeros_like(coef))
+        return sum(self._map(_hat, keep, coef, chol, self.shift), np.zeros_like(coef))
 
     def gathered(self) -> BlockSource:
         """All rows at the client, fetched lazily (only the separation programme uses it)."""
 
         def source() -> Iterator[Block]:
-            for blocks in self._map(_rows):
+            for blocks in self._map(_rows, self.shift):
                 yield from blocks
 
         return source
@@ -263,12 +282,12 @@ class DaskObjective(Objective):
 
 
 def _null(engine: DaskEngine, s: DataSummary, icpt: int | None, method: str) -> tuple[float, float]:
-    """(MLE, penalised) log-likelihood of the intercept-only model, as the local engine does."""
+    """(MLE, penalised) log-likelihood of the intercept-only model, as the local engine does
+    (Firth: under the full model's penalty, :func:`~service.stats.fit.firth_null`)."""
     if icpt is None:
         ll = engine.totals([], np.zeros(0), want=False).loglik
-        return ll, ll
-    start = np.array([logit(s.n_events / s.sum_weights)])
-    if s.has_offset:
+    elif s.has_offset:
+        start = np.array([logit(s.n_events / s.sum_weights)])
         obj = DaskObjective(engine, [icpt], "mle", 0.0, np.zeros(1))
         st = obj.evaluate(start)
         ll = (
@@ -281,10 +300,8 @@ def _null(engine: DaskEngine, s: DataSummary, icpt: int | None, method: str) -> 
         ll = s.n_events * np.log(ybar) + (s.sum_weights - s.n_events) * np.log1p(-ybar)
     if method != "firth":
         return float(ll), float(ll)
-    fobj = DaskObjective(engine, [icpt], "firth", 0.0, np.zeros(1))
-    fst = fobj.evaluate(start)
-    pen = newton(fobj, fst, np.ones(1, bool), max_iter=100, tol=1e-12).state if fst else None
-    return float(ll), float(pen.penalized_loglik) if pen else float("nan")
+    full = DaskObjective(engine, None, "firth", 0.0, np.ones(s.xtw.shape[0]))
+    return float(ll), firth_null(full, s, icpt)
 
 
 def fit_logistic_dask(
@@ -305,15 +322,26 @@ def fit_logistic_dask(
     """
     opts = fit_options(n_terms, term_names, method, ridge_lambda, intercept_index, max_iter, tol)
     names = opts.names
+    engine.shift = None
     summary, sample = engine.scan_and_sample(n_terms, names)
-    sampled = sum(b.X.shape[0] for b in sample)  # fitted at the client
-    start = start_for(method, summary, lambda: iter(sample), sampled, names, intercept_index)
-    return fit_from_scan(
-        lambda mask: DaskObjective(engine, None, method, ridge_lambda, mask),
-        summary,
-        opts,
-        start=start,
-        separation_blocks=engine.gathered,
-        null_logliks=lambda: _null(engine, summary, intercept_index, method),
-        in_memory=engine.persist,  # the partitions held in the workers' memory
-    )
+    shift = column_shifts(summary, intercept_index)
+    try:
+        if shift is not None:  # columns far from zero: centred on the workers, as locally
+            engine.shift = shift
+            summary, sample = engine.scan_and_sample(n_terms, names)
+        sampled = sum(b.X.shape[0] for b in sample)  # fitted at the client
+        start = start_for(method, summary, lambda: iter(sample), sampled, names, intercept_index)
+        fit = fit_from_scan(
+            lambda mask: DaskObjective(engine, None, method, ridge_lambda, mask),
+            summary,
+            opts,
+            start=start,
+            separation_blocks=engine.gathered,
+            null_logliks=lambda: _null(engine, summary, intercept_index, method),
+            in_memory=engine.persist,  # the partitions held in the workers' memory
+        )
+    finally:
+        engine.shift = None
+    if shift is None or intercept_index is None:
+        return fit
+    return uncentred(fit, shift, intercept_index)

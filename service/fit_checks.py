@@ -19,7 +19,7 @@ __all__ = [
     "require_converged",
 ]
 
-RESERVED_NAMES = frozenset({"key"})  # the record field of a client's own score id
+RESERVED_NAMES = frozenset({"key", "passthrough"})  # a score record's own fields: id, echo
 
 
 def needed_columns(spec: VersionSpec) -> list[str]:
@@ -35,7 +35,8 @@ def check_spec(spec: VersionSpec) -> None:
     for i, f in enumerate(spec.features):
         if f.name in RESERVED_NAMES:
             raise SpecError(
-                f"{f.name!r} is reserved for the client's record key",
+                f"{f.name!r} is reserved: score records use it for the client's own "
+                "record key or passthrough values",
                 field=f"features[{i}].name",
                 value=f.name,
                 remedy="rename the column, e.g. to segment_key",
@@ -66,6 +67,31 @@ def check_spec(spec: VersionSpec) -> None:
         )
 
 
+def _not_converged_remedy(fit: LogisticFit, method: str) -> str:
+    """A remedy that addresses the likely cause, by method and how Newton stopped."""
+    capped = fit.stop_reason.startswith("iteration cap")
+    if method == "firth":
+        return (
+            "Firth's penalised likelihood has a maximum for any full-rank design, so this "
+            "points at a numerically degenerate one: look for nearly collinear terms (a level "
+            "almost equal to another, a feature that nearly duplicates a combination of "
+            "others) or a feature on an extreme scale (rescale it, e.g. to thousands or "
+            "per-mille units) and remove or rescale it; options.method='ridge' with a small "
+            "ridge_lambda also fits such designs"
+        )
+    if method == "ridge":
+        return (
+            "raise options.ridge_lambda (a larger penalty makes the problem better "
+            "conditioned), or remove nearly collinear terms"
+        )
+    return (
+        "estimates that keep growing mean quasi-separation (a level or range with only one "
+        "outcome): use options.method='firth', which has a finite estimate there, or merge "
+        "rare levels"
+        + ("; if the estimates were settling, a larger options.max_iter" if capped else "")
+    )
+
+
 def require_converged(fit: LogisticFit, method: str) -> None:
     """:class:`NonConvergenceError` when Newton stopped early (nothing is stored then)."""
     if not fit.converged:
@@ -73,8 +99,7 @@ def require_converged(fit: LogisticFit, method: str) -> None:
             f"the fit did not converge after {fit.iterations} iterations: {fit.stop_reason}",
             field="options.method",
             value=method,
-            remedy="try options.method='firth' (or 'ridge' with a small ridge_lambda), fewer "
-            "levels or terms, or a larger options.max_iter",
+            remedy=_not_converged_remedy(fit, method),
             details={"iterations": fit.iterations, "stop_reason": fit.stop_reason},
         )
 

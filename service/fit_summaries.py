@@ -23,7 +23,7 @@ import numpy as np
 from service.data_io import NUMERIC_KINDS
 from service.schemas import VersionSpec
 from service.stats.columns import CodedLabels
-from service.stats.fit import LogisticFit
+from service.stats.fit import LogisticFit, global_test_rule
 from service.stats.inference import LRTest, global_lr_test
 from service.stats.metrics import auc, brier
 from service.stats.psi import categorical_reference, numeric_reference
@@ -114,6 +114,7 @@ def fit_summary(fit: LogisticFit) -> dict[str, Any]:
             "df": g.df,
             "p_value": finite(g.p_value),
         },
+        "global_test_rule": global_test_rule(fit.method),
     }
     return stats
 
@@ -121,7 +122,14 @@ def fit_summary(fit: LogisticFit) -> dict[str, Any]:
 def drop_term_dicts(drops: tuple[LRTest, ...]) -> list[dict[str, Any]]:
     """The drop-term LR tests as stored under ``fit_stats["drop_term_tests"]``."""
     return [
-        {"name": d.name, "statistic": finite(d.statistic), "df": d.df, "p_value": finite(d.p_value)}
+        {
+            "name": d.name,
+            "kind": d.kind or None,
+            "dropped": list(d.dropped) or None,
+            "statistic": finite(d.statistic),
+            "df": d.df,
+            "p_value": finite(d.p_value),
+        }
         for d in drops
     ]
 

@@ -48,6 +48,7 @@ from service.schemas import VersionPublic, VersionSpec
 from service.stats.blocks import array_blocks
 from service.stats.columns import CodedLabels
 from service.stats.design import design_matrix, learn_encoding
+from service.stats.drop_groups import drop_groups
 from service.stats.fit import LogisticFit, fit_logistic
 from service.stats.inference import drop_term_tests, profile_intervals, term_table
 from service.step_times import StepTimes
@@ -148,7 +149,7 @@ def fit_version(
         table = profile_intervals(blocks, fit, confidence_level)
     else:
         table = term_table(fit, confidence_level)
-    groups = {k: v for k, v in encoding.term_groups.items() if k != "intercept"}
+    groups = drop_groups(encoding.term_groups, encoding.interactions)  # kinds: drop_groups
     fit_summary = _DATA_SUMMARIES.submit(_fit_statistics, X, fit, data)  # while the LR tests run
     drops = drop_term_tests(blocks, fit, groups)
     times.lap("inference")

@@ -25,9 +25,11 @@ from typing import Any
 import numpy as np
 from scipy.special import expit
 
+from service.fit_summaries import drop_term_dicts
 from service.fitting import finite, fit_statistics_dict, term_table_dict
 from service.scoring import LoadedVersion
 from service.stats.blocks import array_blocks
+from service.stats.drop_groups import drop_groups
 from service.stats.fit import LogisticFit, fit_logistic
 from service.stats.inference import drop_term_tests, global_lr_test, term_table
 
@@ -101,17 +103,8 @@ def fit_challenger(
         full = fit_logistic(X, y, term_names=v.term_names)
         a, b, coef, cov = 0.0, 1.0, np.asarray(full.coef), np.asarray(full.cov)
         lr = global_lr_test(full)
-        groups = {k: g for k, g in v.encoding.term_groups.items() if k != "intercept"}
-        tests = drop_term_tests(array_blocks(X, y), full, groups)
-        drops = [
-            {
-                "name": t.name,
-                "statistic": finite(t.statistic),
-                "df": t.df,
-                "p_value": finite(t.p_value),
-            }
-            for t in tests
-        ]
+        groups = drop_groups(v.encoding.term_groups, v.encoding.interactions)
+        drops = drop_term_dicts(drop_term_tests(array_blocks(X, y), full, groups))
     prob = expit(X @ coef)
     stats = fit_statistics_dict(full, y, prob, None)
     stats["global_lr_test"] = (

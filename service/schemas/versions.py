@@ -8,15 +8,17 @@ spec is the JSON form part ``spec`` and the data is the file part ``data`` (CSV 
 
 from __future__ import annotations
 
+import unicodedata
 from datetime import datetime
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from service.schemas.common import StrictModel
 
 __all__ = [
     "CellValue",
+    "DropTermTestPublic",
     "FeatureSpec",
     "FitData",
     "FitOptions",
@@ -52,6 +54,14 @@ class FeatureSpec(StrictModel):
     knots: int | list[float] | None = Field(
         None, description="Spline knots: a count 3..7 or quantiles in (0, 1)."
     )
+
+    @field_validator("reference", "levels")
+    @classmethod
+    def _nfc(cls, v: str | list[str] | None) -> str | list[str] | None:
+        """Levels are matched in Unicode NFC, as the data's text is (fits and scoring)."""
+        if isinstance(v, str):
+            return unicodedata.normalize("NFC", v)
+        return None if v is None else [unicodedata.normalize("NFC", x) for x in v]
 
 
 class FitOptions(StrictModel):
@@ -201,6 +211,19 @@ class LRTestPublic(BaseModel):
     p_value: float | None = Field(description=f"p-value; {_NOT_FINITE}.")
 
 
+class DropTermTestPublic(LRTestPublic):
+    kind: str | None = Field(
+        None,
+        description="`main effect`, `interaction`, `main effect, interactions kept` (only the "
+        "feature's own columns; its interactions stay in the reduced model) or `main effect "
+        "with its interactions` (the feature and every interaction containing it, the test "
+        "respecting marginality); absent on versions fitted before kinds were recorded.",
+    )
+    dropped: list[str] | None = Field(
+        None, description="The features and interactions whose columns the test sets to 0."
+    )
+
+
 class FitStatisticsPublic(BaseModel):
     n_obs: int
     n_events: float = Field(description="Weighted count of outcome 1.")
@@ -219,8 +242,15 @@ class FitStatisticsPublic(BaseModel):
     iterations: int
     stop_reason: str
     global_lr_test: LRTestPublic | None
-    drop_term_tests: list[LRTestPublic] = Field(
-        description="Likelihood-ratio test of dropping each feature (all its columns)."
+    global_test_rule: str | None = Field(
+        None,
+        description="How the global test's null model is fitted. Firth: under the full "
+        "model's penalty (only the intercept free), the rule of the drop-term tests.",
+    )
+    drop_term_tests: list[DropTermTestPublic] = Field(
+        description="Likelihood-ratio test of dropping each feature or interaction (all its "
+        "columns; `kind` says which). Firth fits refit the reduced model under the full "
+        "model's penalty, l(b) + 1/2 log det I_full(b) (Heinze & Schemper 2002)."
     )
     apparent_auc: float | None = Field(None, description="c-statistic on the training data.")
     apparent_brier: float | None = Field(None, description="Brier score on the training data.")

@@ -24,6 +24,7 @@ from models_store.orm import ModelVersion, RiskModel
 from service.config import Settings
 from service.errors import PermissionDeniedError, SpecError
 from service.fit_size import check_fit_size
+from service.fit_summaries import drop_term_dicts
 from service.fitting import (
     check_spec,
     fingerprint_columns,
@@ -35,6 +36,7 @@ from service.fitting import (
 )
 from service.schemas import VersionPublic, VersionSpec
 from service.stats.blocks import BlockSource
+from service.stats.drop_groups import drop_groups
 from service.stats.fit import LogisticFit, fit_logistic_blocks
 from service.stats.inference import drop_term_tests, profile_intervals, term_table
 from service.stats.metrics import auc
@@ -195,16 +197,13 @@ def fit_version_from_path(
             terms = profile_intervals(blocks, fit, confidence_level)
         else:
             terms = term_table(fit, confidence_level)
-        groups = {k: v for k, v in enc.term_groups.items() if k != "intercept"}
+        groups = drop_groups(enc.term_groups, enc.interactions)  # kinds as the upload path
         drops = drop_term_tests(blocks, fit, groups)
     finally:
         if client is not None:
             client.close()
     stats = fit_summary(fit) | _apparent(blocks, fit)
-    stats["drop_term_tests"] = [
-        {"name": d.name, "statistic": finite(d.statistic), "df": d.df, "p_value": finite(d.p_value)}
-        for d in drops
-    ]
+    stats["drop_term_tests"] = drop_term_dicts(drops)
     stats["data_source"] = {"path": checked.shown, "engine": engine, "encoding_passes": se.passes}
     stats["fit_seconds"] = time.perf_counter() - started
     return store_version(

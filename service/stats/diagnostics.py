@@ -1,9 +1,13 @@
 """Detect data that admit no (finite, unique) maximum-likelihood logistic fit.
 
 * single outcome class, and no more rows (with positive weight) than terms;
-* rank deficiency: eigen-decomposition of the scaled cross-product
-  ``D^-1/2 X'WX D^-1/2`` (D its diagonal); eigenvectors of eigenvalues below
-  ``RANK_TOL`` name the collinear terms;
+* rank deficiency: eigen-decomposition of the correlation matrix of the columns centred at
+  their weighted means (with an intercept; the centring is algebraic, from ``X'WX``, so it
+  needs no pass) or of the scaled cross-product ``D^-1/2 X'WX D^-1/2`` (D its diagonal,
+  without one); eigenvectors of relative eigenvalues below ``RANK_TOL`` name the collinear
+  terms. Centring makes the check invariant to shifting a column by a constant, as the
+  model is (common practice in GLM software: collinearity is a property of the centred
+  columns once an intercept is in the model);
 * separation (Albert & Anderson 1984, *Biometrika* 71:1-10): the MLE does not
   exist iff some direction ``d != 0`` has ``s_i x_i'd >= 0`` for every row,
   ``s_i = 2 y_i - 1``, with at least one strict inequality. Following Konis
@@ -75,30 +79,96 @@ def check_counts(summary: DataSummary, p: int) -> None:
         )
 
 
-def collinear_terms(xtwx: np.ndarray, term_names: Sequence[str]) -> list[list[str]]:
-    """Groups of terms in exact (or numerically exact) linear dependence; [] if full rank."""
+def _centred(xtwx: np.ndarray, intercept_index: int) -> tuple[np.ndarray, np.ndarray]:
+    """``(C, m)``: the weighted cross-product of the columns other than the intercept, centred
+    at their weighted means ``m``, from ``X'WX`` alone (its intercept row is ``X'w``):
+
+        C = S - s s' / sw,    S = X_o' W X_o,  s = X_o' w,  sw = 1' w,  m = s / sw.
+    """
+    other = np.setdiff1d(np.arange(xtwx.shape[0]), [intercept_index])
+    sw = float(xtwx[intercept_index, intercept_index])
+    s = xtwx[intercept_index, other]
+    C = xtwx[np.ix_(other, other)] - np.outer(s, s) / sw
+    return C, s / sw
+
+
+def _small_eigenvectors(S: np.ndarray) -> list[np.ndarray]:
+    """Unit eigenvectors of a correlation-scaled cross-product with relative eigenvalue below
+    :data:`RANK_TOL`."""
+    vals, vecs = np.linalg.eigh(S)
+    small = np.flatnonzero(vals < RANK_TOL * max(float(vals[-1]), 1.0))
+    return [vecs[:, k] for k in small]
+
+
+def collinear_terms(
+    xtwx: np.ndarray, term_names: Sequence[str], intercept_index: int | None = None
+) -> list[list[str]]:
+    """Groups of terms in exact (or numerically exact) linear dependence; [] if full rank.
+
+    With an intercept (``intercept_index``) collinearity is judged on the columns centred at
+    their weighted means and scaled to unit variance (:func:`_centred`), so shifting a column
+    by a constant (a year, an id-like offset) changes nothing, as for the fit itself: a
+    constant column is named with the intercept, and a group whose combination is a non-zero
+    constant (a full set of dummies) includes the intercept. Without one, the cross-product is
+    only scaled by its diagonal. ``X'WX`` may carry any positive weights (also Newton's
+    ``w mu (1 - mu)``): the centring uses the same weights.
+    """
+    p = xtwx.shape[0]
+    if intercept_index is None or p < 2 or not xtwx[intercept_index, intercept_index] > 0:
+        return _uncentred_groups(xtwx, term_names)
+    other = np.setdiff1d(np.arange(p), [intercept_index])
+    C, mean = _centred(xtwx, intercept_index)
+    # a centred variance below the rounding error of the uncentred sum is zero
+    floor = 64.0 * np.finfo(float).eps * np.abs(np.diag(xtwx)[other])
+    var = np.diag(C)
+    rms = np.sqrt(np.diag(xtwx)[other] / float(xtwx[intercept_index, intercept_index]))
+    const = var <= floor
+    icpt = term_names[intercept_index]
+    groups: list[list[str]] = [[icpt, term_names[int(other[j])]] for j in np.flatnonzero(const)]
+    live = np.flatnonzero(~const)
+    if live.size:
+        d = np.sqrt(var[live])
+        for v in _small_eigenvectors(C[np.ix_(live, live)] / np.outer(d, d)):
+            a = np.abs(v)
+            big = np.flatnonzero(a > 1e-3 * a.max())
+            coef = v / d  # the combination in the columns' own units
+            level = float(coef[big] @ mean[live[big]])  # the combination's constant value
+            spread = float(np.abs(coef[big]) @ rms[live[big]])  # its terms' typical size
+            named = [term_names[int(other[live[j]])] for j in big]
+            groups.append(([icpt] if abs(level) > 1e-6 * spread else []) + named)
+    return groups
+
+
+def _uncentred_groups(xtwx: np.ndarray, term_names: Sequence[str]) -> list[list[str]]:
+    """Collinear groups of ``D^-1/2 X'WX D^-1/2`` (no intercept to centre with)."""
     d = np.sqrt(np.clip(np.diag(xtwx), 0.0, None))
     groups: list[list[str]] = [[term_names[int(j)]] for j in np.flatnonzero(d == 0)]
     live = np.flatnonzero(d > 0)
     if live.size:
         S = xtwx[np.ix_(live, live)] / np.outer(d[live], d[live])
-        vals, vecs = np.linalg.eigh(S)
-        for k in np.flatnonzero(vals < RANK_TOL * max(float(vals[-1]), 1.0)):
-            v = np.abs(vecs[:, k])
-            big = np.flatnonzero(v > 1e-3 * v.max())
+        for v in _small_eigenvectors(S):
+            a = np.abs(v)
+            big = np.flatnonzero(a > 1e-3 * a.max())
             groups.append([term_names[int(live[j])] for j in big])
     return groups
 
 
-def check_rank(xtwx: np.ndarray, term_names: Sequence[str]) -> None:
-    """Raise :class:`RankDeficientError` naming the collinear terms."""
-    groups = collinear_terms(xtwx, term_names)
+def check_rank(
+    xtwx: np.ndarray, term_names: Sequence[str], intercept_index: int | None = None
+) -> None:
+    """Raise :class:`RankDeficientError` naming the collinear terms (:func:`collinear_terms`)."""
+    groups = collinear_terms(xtwx, term_names, intercept_index)
     if groups:
         terms = sorted({t for g in groups for t in g}, key=list(term_names).index)
+        zero = any(len(g) == 1 for g in groups)
+        const = intercept_index is not None and any(
+            len(g) == 2 and g[0] == term_names[intercept_index] for g in groups
+        )
         raise RankDeficientError(
             "the design matrix is rank deficient: "
             + "; ".join(" ~ ".join(g) for g in groups)
-            + (" (constant zero column)" if any(len(g) == 1 for g in groups) else ""),
+            + (" (constant zero column)" if zero else "")
+            + (" (a constant column duplicates the intercept)" if const else ""),
             field="X",
             value=terms,
             remedy="remove one term of each collinear group (or a redundant categorical level)",

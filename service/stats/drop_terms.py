@@ -21,7 +21,15 @@ The decrement at the new point is then taken with the information at the step's 
 its error, about ``r lambda`` times a decrement below 1e-6, stays below 1e-9. If that
 decrement is not below the tolerance, the usual full pass and step follow (mle and ridge;
 Firth's penalty needs the information at every point). Firth and ridge fits use penalised
-log-likelihoods (the full-model penalty, Heinze & Schemper 2002).
+log-likelihoods (the full-model penalty, Heinze & Schemper 2002): a Firth reduced model
+maximises ``l(b) + 1/2 log det I_full(b)`` over the free coefficients, ``I_full`` the full
+model's information, not the reduced model's own penalty. Firth's global test follows the
+same rule (:func:`service.stats.fit.firth_null`: the null model is the full model with only
+the intercept free).
+
+Which columns a test drops, and what kind of test that makes (a main effect that also appears
+in an interaction: its own columns only, or with every interaction containing it, the test
+respecting marginality): :mod:`service.stats.drop_groups`.
 """
 
 from __future__ import annotations
@@ -36,7 +44,8 @@ from scipy.stats import chi2
 from service.errors import SpecError
 
 from .blocks import BlockSource
-from .fit import LogisticFit, constrained_fit
+from .drop_groups import DropGroup
+from .fit import LogisticFit, centred_view, constrained_fit
 from .likelihood import Totals, loglik_pass
 from .newton import Objective, State
 from .score_pass import score_pass
@@ -71,6 +80,8 @@ class LRTest:
     statistic: float
     df: int
     p_value: float
+    kind: str = ""  # drop-term tests: service.stats.drop_groups (e.g. "main effect")
+    dropped: tuple[str, ...] = ()  # drop-term tests: the term groups set to 0
 
 
 def lr_test(name: str, stat: float, df: int) -> LRTest:
@@ -79,12 +90,25 @@ def lr_test(name: str, stat: float, df: int) -> LRTest:
 
 
 def drop_term_tests(
-    blocks: BlockSource, fit: LogisticFit, groups: Mapping[str, Sequence[int]]
+    blocks: BlockSource, fit: LogisticFit, groups: Mapping[str, Sequence[int] | DropGroup]
 ) -> tuple[LRTest, ...]:
-    """LR test per group: all its columns set to 0 together (e.g. ``Encoding.term_groups``)."""
+    """LR test per group: all its columns set to 0 together.
+
+    ``groups`` maps a name to column indices (e.g. ``Encoding.term_groups``; the test's
+    ``kind`` is then ``"columns"``) or to a :class:`~service.stats.drop_groups.DropGroup`
+    (:func:`~service.stats.drop_groups.drop_groups`: main effects, interactions and the
+    marginality-respecting tests, each with its kind and the term groups dropped).
+    """
     p = len(fit.term_names)
     checked: list[tuple[str, list[int]]] = []
-    for name, cols in groups.items():
+    about: dict[str, tuple[str, tuple[str, ...]]] = {}
+    for name, group in groups.items():
+        if isinstance(group, DropGroup):
+            cols: Sequence[int] = group.columns
+            about[name] = (group.kind, group.dropped)
+        else:
+            cols = group
+            about[name] = ("columns", (name,))
         idx = sorted({int(c) for c in cols})
         if not idx or idx[0] < 0 or idx[-1] >= p or fit.intercept_index in idx:
             raise SpecError(
@@ -94,6 +118,7 @@ def drop_term_tests(
                 remedy=f"use column indices in 0..{p - 1} other than the intercept",
             )
         checked.append((name, idx))
+    blocks, fit = centred_view(blocks, fit)  # no group holds the intercept (checked above)
     info = _full_information(fit)
     by_chord: dict[str, float] = {}
     if info is not None and fit.method != "firth":
@@ -103,7 +128,9 @@ def drop_term_tests(
         restricted = by_chord.get(name)
         if restricted is None:
             restricted = _restricted_loglik(blocks, fit, info, idx)
-        out.append(lr_test(name, 2.0 * (fit.penalized_loglik - restricted), len(idx)))
+        t = lr_test(name, 2.0 * (fit.penalized_loglik - restricted), len(idx))
+        kind, dropped = about[name]
+        out.append(LRTest(t.name, t.statistic, t.df, t.p_value, kind, dropped))
     return tuple(out)
 
 

@@ -15,26 +15,30 @@ log-likelihood is 0); ``aic = -2 loglik + 2 p``; ``bic = -2 loglik + p log(sum_w
 (``sum_weights = n_obs`` without weights); McFadden's ``R^2 = 1 - loglik / null_loglik``.
 The null model is intercept-only with the same weights and offset (offset-only if
 there is no intercept). For penalised methods these use the unpenalised loglik and p.
+Firth's penalised null log-likelihood (its global likelihood-ratio test) is the full
+model's penalised log-likelihood restricted to the intercept, the full model's penalty
+kept (:func:`firth_null`), the same rule as its drop-term tests.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Literal
 
 import numpy as np
 from scipy.linalg import cho_factor, cho_solve
-from scipy.special import logit
 
 from service.errors import RankDeficientError
 
-from .blocks import BlockSource, array_blocks, sub_blocks
+from .blocks import BlockSource, array_blocks
+from .centring import column_shifts, shift_matrix, shifted_blocks
 from .diagnostics import check_separation
 from .fit_options import FitOptions, fit_options
 from .fit_start import newton_from_scan
-from .likelihood import DataSummary, loglik_pass, scan
+from .likelihood import DataSummary, scan
 from .newton import NewtonResult, Objective, State, newton
+from .null_model import FIRTH_GLOBAL_TEST_RULE, firth_null, global_test_rule, null_logliks
 from .row_sample import RowSample
 from .warm_start import (
     WARM_START_MIN_ROWS,
@@ -43,16 +47,34 @@ from .warm_start import (
 )
 
 __all__ = [
+    "FIRTH_GLOBAL_TEST_RULE",
+    "Centring",
     "LogisticFit",
     "Method",
+    "centred_view",
     "constrained_fit",
     "finish_fit",
+    "firth_null",
     "fit_from_scan",
     "fit_logistic",
     "fit_logistic_blocks",
+    "global_test_rule",
+    "uncentred",
 ]
 
 Method = Literal["mle", "firth", "ridge"]
+
+
+@dataclass(frozen=True)
+class Centring:
+    """A fit made on centred columns (:mod:`service.stats.centring`): the constants subtracted
+    (p,) and the estimate and covariance in those columns, which refits (drop-term tests,
+    profiles) start from: converting back from the original columns would lose the digits
+    the centring saved."""
+
+    shift: np.ndarray
+    coef: np.ndarray
+    cov: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -81,35 +103,9 @@ class LogisticFit:
     mcfadden_r2: float
     warnings: tuple[str, ...]
     intercept_index: int | None = 0
-    null_penalized_loglik: float = float("nan")  # intercept-only, same penalty (Firth LR tests)
-
-
-def _null_loglik(
-    blocks: BlockSource, s: DataSummary, intercept_index: int | None, method: str
-) -> tuple[float, float]:
-    """(unpenalised MLE, penalised) log-likelihood of the intercept-only model."""
-    if intercept_index is None:
-        ll = loglik_pass(sub_blocks(blocks, []), np.zeros(0), want_info=False).loglik
-        return ll, ll
-    null_blocks = sub_blocks(blocks, [intercept_index])
-    if s.has_offset:
-        obj = Objective(null_blocks, "mle", 0.0, np.zeros(1))
-        start = np.array([logit(s.n_events / s.sum_weights)])
-        st = obj.evaluate(start)
-        ll = (
-            newton(obj, st, np.ones(1, bool), max_iter=100, tol=1e-12).state.loglik
-            if st
-            else -np.inf
-        )
-    else:
-        ybar = s.n_events / s.sum_weights
-        ll = s.n_events * np.log(ybar) + (s.sum_weights - s.n_events) * np.log1p(-ybar)
-    if method != "firth":
-        return float(ll), float(ll)
-    fobj = Objective(null_blocks, "firth", 0.0, np.zeros(1))
-    fst = fobj.evaluate(np.array([logit(s.n_events / s.sum_weights)]))
-    pen = newton(fobj, fst, np.ones(1, bool), max_iter=100, tol=1e-12).state if fst else None
-    return float(ll), float(pen.penalized_loglik) if pen else float("nan")
+    # intercept-only under the full model's penalty (Firth LR tests, FIRTH_GLOBAL_TEST_RULE)
+    null_penalized_loglik: float = float("nan")
+    centring: Centring | None = None  # set when columns far from zero were centred
 
 
 def fit_logistic_blocks(
@@ -148,20 +144,53 @@ def fit_logistic_blocks(
     sample = RowSample() if method == "mle" else None
     light = sample is not None and many_rows
     summary = scan(blocks, n_terms, names, sample, cross_products=not light)
+    shift = column_shifts(summary, intercept_index)
+    if shift is not None:  # columns far from zero: fit on them centred (service.stats.centring)
+        blocks = shifted_blocks(blocks, shift)
+        sample = RowSample() if method == "mle" else None
+        summary = scan(blocks, n_terms, names, sample, cross_products=not light)
     start = None
     if sample is not None:
         start = start_for(method, summary, sample.source(), sample.rows, names, intercept_index)
     if summary.xtwx is None and start is None:
         summary = scan(blocks, n_terms, names)  # the intercept-only start needs X' W X
-    return fit_from_scan(
+    fit = fit_from_scan(
         lambda mask: Objective(blocks, method, ridge_lambda, mask),
         summary,
         opts,
         start=start,
         separation_blocks=lambda: blocks,
-        null_logliks=lambda: _null_loglik(blocks, summary, intercept_index, method),
+        null_logliks=lambda: null_logliks(blocks, summary, intercept_index, method),
         in_memory=in_memory,
     )
+    return (
+        fit if shift is None or intercept_index is None else uncentred(fit, shift, intercept_index)
+    )
+
+
+def uncentred(fit: LogisticFit, shift: np.ndarray, intercept_index: int) -> LogisticFit:
+    """A fit made on columns ``x_j - shift_j`` expressed in the original columns:
+    ``coef = A coef'``, ``cov = A cov' A'`` (:mod:`service.stats.centring`); log-likelihoods,
+    counts and tests are the same for both."""
+    A = shift_matrix(shift, intercept_index)
+    cov = fit.cov
+    if np.all(np.isfinite(cov)):
+        cov = A @ cov @ A.T
+        cov = 0.5 * (cov + cov.T)
+    se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    centring = Centring(shift, fit.coef, fit.cov)
+    return replace(fit, coef=A @ fit.coef, cov=cov, std_error=se, centring=centring)
+
+
+def centred_view(blocks: BlockSource, fit: LogisticFit) -> tuple[BlockSource, LogisticFit]:
+    """``(blocks, fit)`` in the centred columns the fit was made on (as they are if it was not
+    centred). Restricting non-intercept coefficients is the same in both parametrisations
+    (``b_j = b'_j``), and the (penalised) log-likelihood is the same function, so refits that
+    fix only such coefficients may run here, where the information is well conditioned."""
+    c = fit.centring
+    if c is None:
+        return blocks, fit
+    return shifted_blocks(blocks, c.shift), replace(fit, coef=c.coef, cov=c.cov, centring=None)
 
 
 def fit_from_scan(
@@ -216,7 +245,10 @@ def finish_fit(
     stop = str(res.stop_reason)
     warnings: list[str] = []
     if not converged:
-        stop += '; try a larger max_iter, or method="firth" / "ridge" if estimates diverge'
+        if method == "mle":
+            stop += '; diverging estimates mean quasi-separation: method="firth"'
+        elif method == "firth":
+            stop += "; look for nearly collinear terms or a feature on an extreme scale"
         warnings.append("not converged: " + stop)
     if st.n_extreme:
         warnings.append(f"{st.n_extreme} fitted probabilities are numerically 0 or 1")
@@ -291,8 +323,19 @@ def constrained_fit(
     """Maximise the fit's (penalised) log-likelihood with ``coef[j] = fixed[j]`` held.
 
     Starts at ``start`` (default the fit's estimate); the penalty is the full-model one (Firth: the
-    whole information matrix), as used by profile intervals and LR tests.
+    whole information matrix), as used by profile intervals and LR tests. For a fit made on
+    centred columns (``fit.centring``) with the intercept free, the refit runs in those columns
+    (:func:`centred_view`) and the state's ``coef`` is returned in the original ones (its
+    score and information stay in the centred ones). With the intercept fixed the original
+    columns are well conditioned (the intercept is what they are collinear with).
     """
+    icpt = fit.intercept_index
+    if fit.centring is not None and icpt is not None and icpt not in fixed:
+        A = shift_matrix(fit.centring.shift, icpt)
+        cblocks, cfit = centred_view(blocks, fit)
+        cstart = None if start is None else np.linalg.solve(A, start)
+        st = constrained_fit(cblocks, cfit, fixed, start=cstart, tol=tol)
+        return replace(st, coef=A @ st.coef)
     p = fit.coef.shape[0]
     mask = np.ones(p)
     if fit.intercept_index is not None:

@@ -52,7 +52,7 @@ def newton_from_scan(
     p = len(names)
     check_counts(summary, p)
     if summary.xtwx is not None and (method != "ridge" or opts.ridge_lambda == 0):
-        check_rank(summary.xtwx, names)
+        check_rank(summary.xtwx, names, intercept_index)
     mask = np.ones(p)
     if intercept_index is not None:
         mask[intercept_index] = 0.0
@@ -66,10 +66,10 @@ def newton_from_scan(
         if warm is None:
             raise _singular_start(names)
         if not warm.rounded:
-            check_rank(warm.info, names)
+            check_rank(warm.info, names, intercept_index)
         res = newton(obj, warm, np.ones(p, bool), max_iter=max_iter, tol=tol, rounded=rounded)
         if warm.rounded:  # on the final information, the first exact one
-            check_rank(res.state.info, names)
+            check_rank(res.state.info, names, intercept_index)
         return res
     coef0 = np.zeros(p)
     if intercept_index is not None:

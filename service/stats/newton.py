@@ -33,7 +33,24 @@ intercept):
 
 * ``ridge``: ``l(b) - lambda/2 * sum_j m_j b_j^2``; information ``I + lambda diag(m)``
   (Hoerl & Kennard 1970; le Cessie & van Houwelingen 1992 for the logistic model).
-* ``firth``: ``l(b) + 1/2 log det I(b)`` (see :mod:`service.stats.firth`).
+* ``firth``: ``l(b) + 1/2 log det I(b)`` (see :mod:`service.stats.firth`). Its steps use the
+  Fisher information ``I(b)``, not the Hessian of the penalty (which needs the whole hat
+  matrix), as Heinze & Schemper (2002) do. Where the penalty's curvature is as large as the
+  log-likelihood's, the step is too long: for a categorical level seen once, with an event,
+  the one row's ``l* = 3/2 log mu + 1/2 log(1 - mu)`` has curvature ``-2 mu (1 - mu)`` against
+  the information's ``mu (1 - mu)``, so the full step lands as far beyond the maximum as it
+  started before it, and the iterates oscillate for ever with an unchanged ``l*``. Each Firth
+  step is therefore checked with the score at its end (which the pass computes anyway): a
+  step that passed the maximum along its line is shortened to the secant point where the
+  slope along the line vanishes (:func:`_secant_correction`, one more pass when it happens),
+  which makes the iteration a contraction (a line search along the scoring direction).
+  Where levels of different sizes (or separation and a large raw-unit slope) make the
+  mismatch differ between directions, a line search alone converges slowly, so Firth's steps
+  solve ``(I + C) d = U*`` with ``C`` a secant (SR1) estimate of the penalty's curvature
+  learned from the score changes (:func:`_curvature_update`; dropped whenever ``I + C`` is not
+  positive definite). Convergence is judged as for every method (the decrement and the
+  largest step in units of ``|coef| + se``, both invariant to the units of a column); the
+  covariance stays ``I^-1`` at the estimate (Heinze & Schemper 2002).
 
 Coefficients outside the ``free`` mask stay at their starting values, which is how
 constrained refits (profile likelihood, likelihood-ratio tests) are computed with the
@@ -60,6 +77,12 @@ __all__ = ["ROUNDED_STEP_LIMIT", "NewtonResult", "Objective", "State", "newton",
 ROUNDED_STEP_LIMIT = 1e-2
 ROUNDED_MAX_CONDITION = 1e5  # kappa (of the correlation-scaled information) up to which
 ROUNDED_RANGE = (1e-30, 1e30)  # and diagonal entries / total weight in which rounding is safe
+# Firth: a step whose end slope along it is below -SECANT_TRIGGER times its start slope
+# overshot the maximum on its line and is shortened to the secant point (module docstring).
+SECANT_TRIGGER = 0.1
+# Firth: the penalty's curvature is learned (SR1) only from steps this small (scaled as in the
+# convergence test); larger ones mostly measure the log-likelihood's third derivative.
+CURVATURE_STEP_LIMIT = 0.1
 
 
 @dataclass(frozen=True)
@@ -148,6 +171,61 @@ def _exact(obj: Objective, state: State) -> State:
     return state if again is None else again
 
 
+def _factor(info: np.ndarray, corr: np.ndarray) -> tuple[np.ndarray, bool]:
+    """Cholesky factor of ``info + corr``, or of ``info`` alone when that is not positive
+    definite (raises :class:`LinAlgError` if neither is)."""
+    if np.any(corr):
+        try:
+            return cho_factor(info + corr, lower=True, check_finite=False)  # type: ignore[no-any-return]
+        except LinAlgError:
+            corr[:] = 0.0
+    return cho_factor(info, lower=True, check_finite=False)  # type: ignore[no-any-return]
+
+
+def _curvature_update(corr: np.ndarray, old: State, new: State, idx: np.ndarray) -> np.ndarray:
+    """Firth: symmetric rank-one secant update of ``C``, the estimate of the penalty's part of
+    the negative Hessian, so that the steps solve ``(I + C) d = U*`` (a structured
+    quasi-Newton method: the exact part ``I`` recomputed at every point, the rest learned
+    from the score changes; Dennis, Gay & Welsch 1981, *ACM TOMS* 7:348-368, for the same
+    split in least squares). The secant condition ``(I_bar + C_new) s = y`` with step ``s``,
+    ``y = U*_old - U*_new`` and ``I_bar`` the mean of the informations at the step's ends
+    (the trapezoid rule for the log-likelihood's part, so that its change along the step is
+    not taken for the penalty's) gives ``r = y - I_bar s - C s`` and
+    ``C_new = C + r r' / (r' s)``, skipped when ``|r' s|`` is tiny (Nocedal & Wright,
+    *Numerical Optimization*, 2006, sec. 6.2)."""
+    s = new.coef[idx] - old.coef[idx]
+    y = old.score[idx] - new.score[idx]
+    info = 0.5 * (old.info[np.ix_(idx, idx)] + new.info[np.ix_(idx, idx)])  # trapezoid rule
+    r = y - info @ s - corr @ s
+    rs = float(r @ s)
+    if not np.all(np.isfinite(r)) or abs(rs) <= 1e-8 * float(np.linalg.norm(r) * np.linalg.norm(s)):
+        return corr
+    return corr + np.outer(r, r) / rs
+
+
+def _secant_correction(
+    obj: Objective, state: State, new: State, idx: np.ndarray, step: np.ndarray
+) -> State:
+    """Firth: shorten a step that overshot the maximum along its direction (module docstring).
+
+    With ``s0 = g(b)' d`` and ``s1 = g(b + d)' d`` the penalised log-likelihood's slopes along
+    the step ``d`` at its two ends, ``s1 < 0`` means the step passed the maximum on its line;
+    the secant (regula falsi) point ``t = s0 / (s0 - s1)`` is where the slope, linear along
+    the line, is zero. It replaces ``b + d`` when its penalised log-likelihood is no lower.
+    """
+    s0 = float(state.score[idx] @ step)
+    s1 = float(new.score[idx] @ step)
+    if not (s0 > 0.0 and s1 < -SECANT_TRIGGER * s0):
+        return new
+    t = s0 / (s0 - s1)
+    coef = state.coef.copy()
+    coef[idx] += t * step
+    short = obj.evaluate(coef)
+    if short is None or short.penalized_loglik < new.penalized_loglik:
+        return new
+    return short
+
+
 def newton(
     obj: Objective,
     state: State,
@@ -165,12 +243,13 @@ def newton(
     idx = np.flatnonzero(free)
     max_step = np.inf
     step_tol = 100.0 * tol
+    corr = np.zeros((idx.size, idx.size))  # Firth: secant estimate of the penalty's curvature
     for iteration in range(max_iter + 1):
         if idx.size == 0:
             return NewtonResult(_exact(obj, state), True, iteration, "no free coefficients", 0.0)
         dev = -2.0 * state.penalized_loglik
         try:
-            chol = cho_factor(state.info[np.ix_(idx, idx)], lower=True, check_finite=False)
+            chol = _factor(state.info[np.ix_(idx, idx)], corr)
         except LinAlgError:
             if state.rounded:  # rounding may have cost positive definiteness
                 state, rounded = _exact(obj, state), False
@@ -210,6 +289,10 @@ def newton(
                 "step-halving could not increase the log-likelihood",
                 max_step,
             )
+        if obj.method == "firth":
+            new = _secant_correction(obj, state, new, idx, step)
+            if max_step <= CURVATURE_STEP_LIMIT:
+                corr = _curvature_update(corr, state, new, idx)
         # A rounded information's error in the step just taken is not squared away: a state
         # reached by such a step must show a step 100 times smaller to count as converged.
         step_tol = tol if state.rounded else 100.0 * tol

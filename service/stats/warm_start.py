@@ -109,7 +109,7 @@ def sample_start(
         summary = scan(sample, p, names)
         check_counts(summary, p)
         assert summary.xtwx is not None  # a scan with cross-products
-        check_rank(summary.xtwx, names)
+        check_rank(summary.xtwx, names, intercept_index)
     except RiskfitError:
         return None
     mask = np.ones(p)

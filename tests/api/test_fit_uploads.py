@@ -180,3 +180,34 @@ def test_nfc_and_nfd_spellings_of_a_level_are_one_level(api: ApiClient) -> None:
         assert got["training_ranges"] == base.json()["training_ranges"], how
         assert got["data_fingerprint"] == base.json()["data_fingerprint"], how
         assert got["term_table"] == base.json()["term_table"], how
+
+
+def test_a_reference_level_spelt_in_nfd_names_the_nfc_level(api: ApiClient) -> None:
+    # Unicode Standard Annex #15: the spec's reference is text like the data's, matched in NFC.
+    _, mixed = _mixed_spellings(900, seed=29)
+    spec = {
+        **SPEC,
+        "features": [
+            {**f, "reference": NFD_LEVEL} if f["name"] == "material" else f
+            for f in SPEC["features"]
+        ],
+    }
+    r = api.post("/risk-models/nfd-ref/versions", json={**spec, "data": {"columns": mixed}})
+    assert r.status_code == 201, r.text
+    material = next(f for f in r.json()["encoding"]["features"] if f["name"] == "material")
+    assert material["reference"] == NFC_LEVEL
+    assert all(NFD_LEVEL not in t["name"] for t in r.json()["term_table"]["terms"])
+
+
+@pytest.mark.parametrize("name", ["key", "passthrough"])
+def test_feature_names_a_score_record_uses_itself_are_refused(api: ApiClient, name: str) -> None:
+    cols = segments(200, seed=31)
+    spec = {**SPEC, "features": [*SPEC["features"], {"name": name, "kind": "numeric"}]}
+    r = api.post(
+        "/risk-models/reserved/versions",
+        json={**spec, "data": {"columns": {**cols, name: cols["age_years"]}}},
+    )
+    assert r.status_code == 422, r.text
+    err = r.json()["error"]
+    assert err["field"] == f"features[{len(SPEC['features'])}].name"
+    assert err["value"] == name and "rename" in err["remedy"]

@@ -138,6 +138,9 @@ def test_a_new_effect_needs_the_full_refit(api: ApiClient) -> None:
         "x3",
         "grade",
     ]
+    # a full refit's drop-term rows say what they drop, as a fit's do (regression: kind was null)
+    for d in v2["fit_statistics"]["drop_term_tests"]:
+        assert d["kind"] is not None and d["dropped"], d
 
 
 @pytest.mark.parametrize("truth", ["same", "shift", "slope", "effect"])

@@ -141,3 +141,20 @@ def test_bad_weights_raise_the_engine_error(client: Any) -> None:
     w[700] = -1.0
     with pytest.raises(DataError, match="negative weight"):
         fit_logistic_dask(DaskEngine(client, _array_parts(X, y, w, None)), n_terms=3)
+
+
+@pytest.mark.parametrize("method", ["mle", "firth"])
+def test_shifted_column_and_firth_null_equal_single_machine(client: Any, method: str) -> None:
+    # A column near 1e6 (centred on the workers, as locally) and Firth's null model under the
+    # full model's penalty: the cluster reproduces the single-machine fit, which is checked
+    # against statsmodels / scipy in tests/stats/test_location_invariance.py and
+    # tests/stats/test_firth_global_and_drop_rules.py.
+    X, y, w, off = _arrays(61, 3000, 4)
+    X[:, 2] += 1e6
+    local = fit_logistic(X, y, weights=w, offset=off, method=method)  # type: ignore[arg-type]
+    engine = DaskEngine(client, _array_parts(X, y, w, off))
+    got = fit_logistic_dask(engine, n_terms=4, method=method)  # type: ignore[arg-type]
+    assert got.converged and local.converged
+    np.testing.assert_allclose(got.coef, local.coef, rtol=1e-9)
+    np.testing.assert_allclose(got.std_error, local.std_error, rtol=1e-8)
+    assert got.null_penalized_loglik == pytest.approx(local.null_penalized_loglik, rel=1e-10)

@@ -79,8 +79,12 @@ def test_firth_profile_interval_matches_direct_constrained_maximisation() -> Non
 def test_firth_global_test_uses_penalised_null() -> None:
     X, y = _separated(6, 60)
     fit = fit_logistic(X, y, method="firth")
-    null = _argmin(_penalised(X[:, :1], y), np.zeros(1))
-    assert fit.null_penalized_loglik == pytest.approx(-_penalised(X[:, :1], y)(null), abs=1e-9)
+    # The null model under the FULL model's penalty (Heinze & Schemper 2002, as the drop-term
+    # tests): l(b) + 1/2 log det I_full(b) over the intercept, the slopes held at 0. (Until
+    # issue 15 this asserted the null model's own penalty, the inconsistency fixed there.)
+    neg = _penalised(X, y)
+    null = _argmin(lambda r: neg(np.array([r[0], 0.0, 0.0])), np.zeros(1))
+    assert fit.null_penalized_loglik == pytest.approx(-neg(np.array([null[0], 0.0, 0.0])), abs=1e-9)
     g = global_lr_test(fit)
     assert g.statistic == pytest.approx(2 * (fit.penalized_loglik - fit.null_penalized_loglik))
     assert g.df == 2 and g.p_value < 1e-3
