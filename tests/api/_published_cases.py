@@ -742,9 +742,6 @@ def all_cases() -> list[Case]:
     out.append(spector().with_options("spector", method="firth"))
     out.append(awkward().with_options("awkward", method="firth"))
     out.append(id_1e9().with_options("id-1e9", method="firth"))
-    out.append(
-        breast_cancer_all().with_options("breast-cancer-30/1000", method="firth", max_iter=1000)
-    )
     for make in SEPARATED:
         c = make()
         out.append(c)
