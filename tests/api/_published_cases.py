@@ -58,15 +58,57 @@ def _level_text(v: Any) -> str:
     return repr(v)
 
 
-def reference_design(spec: dict[str, Any], columns: dict[str, list[Any]]) -> pd.DataFrame:
+# Harrell, Regression Modeling Strategies, 2nd ed., Table 2.3: default knot quantiles for 3-5
+# knots (quoted from memory)
+SPLINE_QUANTILES = {
+    3: (0.10, 0.50, 0.90),
+    4: (0.05, 0.35, 0.65, 0.95),
+    5: (0.05, 0.275, 0.5, 0.725, 0.95),
+}
+
+
+def _rcs(x: np.ndarray, t: np.ndarray) -> list[np.ndarray]:
+    """Restricted cubic spline terms s_1..s_{k-2} (Harrell 2nd ed. eq. 2.25), each divided by
+    (t_k - t_1)^2 as riskfit documents (service/stats/splines.py)."""
+    k = len(t)
+
+    def cube(u: np.ndarray) -> np.ndarray:
+        return np.maximum(u, 0.0) ** 3
+
+    out = []
+    for j in range(k - 2):
+        s = (
+            cube(x - t[j])
+            - cube(x - t[k - 2]) * (t[k - 1] - t[j]) / (t[k - 1] - t[k - 2])
+            + cube(x - t[k - 1]) * (t[k - 2] - t[j]) / (t[k - 1] - t[k - 2])
+        )
+        out.append(s / (t[k - 1] - t[0]) ** 2)
+    return out
+
+
+def reference_design(
+    spec: dict[str, Any], columns: dict[str, list[Any]], train_rows: int | None = None
+) -> pd.DataFrame:
     """Intercept, numeric columns (``log`` if asked), treatment dummies ``g=level`` for every
-    level but the reference (the spec's, else the first in string order), and every product
-    of the two features' columns for an interaction ``a:b`` (common practice)."""
+    level but the reference (the spec's, else the first in string order), restricted cubic
+    splines ``x, x_s1, ..`` with knots at Harrell's quantiles of the first ``train_rows`` rows
+    (numpy's linear interpolation), and every product of the two features' columns for an
+    interaction ``a:b`` (common practice)."""
     df = pd.DataFrame(columns)
+    train = len(df) if train_rows is None else train_rows
     parts: dict[str, pd.DataFrame] = {}
     for f in spec["features"]:
         name = f["name"]
-        if f["kind"] == "numeric":
+        if f["kind"] == "spline":
+            x = df[name].astype(float).to_numpy()
+            if f.get("transform") == "log":
+                x = np.log(x)
+            knots = np.quantile(x[:train], SPLINE_QUANTILES[int(f.get("knots", 4))])
+            cols = {name: x} | {
+                f"{name}_s{j + 1}": s for j, s in enumerate(_rcs(x, np.asarray(knots)))
+            }
+            parts[name] = pd.DataFrame(cols)
+        elif f["kind"] == "numeric":
             x = df[name].astype(float)
             parts[name] = pd.DataFrame({name: np.log(x) if f.get("transform") == "log" else x})
         else:
@@ -434,6 +476,18 @@ def anes96_empty_cells() -> Case:
     return case
 
 
+def anes96_spline() -> Case:
+    """statsmodels.datasets.anes96: age as a restricted cubic spline with 4 knots."""
+    case = anes96()
+    case.name = "anes96-spline"
+    feats = [
+        {"name": "age", "kind": "spline", "knots": 4} if f["name"] == "age" else f
+        for f in case.spec["features"]
+    ]
+    case.spec = {**case.spec, "features": feats}
+    return case
+
+
 def modechoice() -> Case:
     """statsmodels.datasets.modechoice: chosen (1) or not, per travel mode; mode x income."""
     d = sm.datasets.modechoice.load_pandas().data
@@ -499,6 +553,17 @@ def breast_cancer_means() -> Case:
     return _frame_case(
         "breast-cancer-10", "sklearn load_breast_cancer", df, [_num(c) for c in names[:10]]
     )
+
+
+def breast_cancer_means_log() -> Case:
+    """sklearn load_breast_cancer, the 10 'mean' columns with radius, perimeter and area
+    log-transformed (their natural log; all values > 0)."""
+    case = breast_cancer_means()
+    case.name = "breast-cancer-10-log"
+    logged = {"mean_radius", "mean_perimeter", "mean_area"}
+    feats = [{**f, "transform": "log"} if f["name"] in logged else f for f in case.spec["features"]]
+    case.spec = {**case.spec, "features": feats}
+    return case
 
 
 def breast_cancer_all() -> Case:
@@ -713,9 +778,11 @@ FITS: list[Callable[[], Case]] = [
     fair,
     anes96,
     anes96_codes,
+    anes96_spline,
     modechoice,
     star98_weighted,
     breast_cancer_means,
+    breast_cancer_means_log,
     iris_versicolor_virginica,
     digits_wide,
     awkward,

@@ -158,7 +158,9 @@ def run_case(api: ApiClient, case: Case, model: str, transport: str = "json") ->
             # levels and references as learned from the training rows: build the design of
             # training + scored rows together and keep the scored ones
             both = {k: [*case.columns[k], *cols[k]] for k in cols}
-            Xs = reference_design(case.spec, both)[trial.names].iloc[-len(case.score_records) :]
+            n_train = len(next(iter(case.columns.values())))
+            Xs = reference_design(case.spec, both, n_train)[trial.names]
+            Xs = Xs.iloc[-len(case.score_records) :]
             trial.expected_scores = trial.reference.predict(Xs.to_numpy(), b["offset"], level)
     return trial
 
