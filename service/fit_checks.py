@@ -70,6 +70,11 @@ def check_spec(spec: VersionSpec) -> None:
 def _not_converged_remedy(fit: LogisticFit, method: str) -> str:
     """A remedy that addresses the likely cause, by method and how Newton stopped."""
     capped = fit.stop_reason.startswith("iteration cap")
+    if method == "firth" and capped and fit.iterations < 100:  # below the default cap
+        return (
+            f"Newton stopped at options.max_iter = {fit.iterations}: raise it (default 100); "
+            "Firth fits of full-rank designs settle well within the default"
+        )
     if method == "firth":
         return (
             "Firth's penalised likelihood has a maximum for any full-rank design, so this "

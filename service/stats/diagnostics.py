@@ -45,6 +45,7 @@ __all__ = [
     "check_counts",
     "check_rank",
     "check_separation",
+    "collinear_dependencies",
     "collinear_terms",
     "separating_direction",
 ]
@@ -92,18 +93,53 @@ def _centred(xtwx: np.ndarray, intercept_index: int) -> tuple[np.ndarray, np.nda
     return C, s / sw
 
 
-def _small_eigenvectors(S: np.ndarray) -> list[np.ndarray]:
-    """Unit eigenvectors of a correlation-scaled cross-product with relative eigenvalue below
-    :data:`RANK_TOL`."""
+def _small_eigenvectors(S: np.ndarray) -> list[tuple[int, np.ndarray]]:
+    """A basis of the (numerical) null space of a correlation-scaled cross-product, one
+    dependency per vector: ``(pivot, v)`` pairs.
+
+    The eigenvectors with relative eigenvalue below :data:`RANK_TOL` span the null space, but
+    with two or more dependencies each of them mixes all of them (an eigenbasis is any
+    rotation of the space). Gauss-Jordan elimination with pivoting on those k vectors (k, m)
+    gives the reduced row echelon basis: vector i has 1 at its own pivot column and 0 at every
+    other pivot, so it names one dependency, and removing the k pivot columns leaves full rank
+    (a null vector without its pivots' entries is 0).
+    """
     vals, vecs = np.linalg.eigh(S)
     small = np.flatnonzero(vals < RANK_TOL * max(float(vals[-1]), 1.0))
-    return [vecs[:, k] for k in small]
+    N = vecs[:, small].T.copy()  # (k, m)
+    free = np.ones(N.shape[1], dtype=bool)
+    out: list[tuple[int, np.ndarray]] = []
+    for i in range(N.shape[0]):
+        j = int(np.argmax(np.where(free, np.abs(N[i]), -1.0)))
+        N[i] /= N[i, j]
+        for r in range(N.shape[0]):
+            if r != i:
+                N[r] -= N[r, j] * N[i]
+        free[j] = False
+        out.append((j, N[i]))
+    return out
+
+
+def _named(v: np.ndarray) -> np.ndarray:
+    """Indices of the entries of a dependency that matter, in column order."""
+    a = np.abs(v)
+    return np.flatnonzero(a > 1e-3 * a.max())
 
 
 def collinear_terms(
     xtwx: np.ndarray, term_names: Sequence[str], intercept_index: int | None = None
 ) -> list[list[str]]:
-    """Groups of terms in exact (or numerically exact) linear dependence; [] if full rank.
+    """Groups of terms in exact (or numerically exact) linear dependence, each in column
+    order; [] if full rank (:func:`collinear_dependencies` without the terms to remove)."""
+    return [g for g, _ in collinear_dependencies(xtwx, term_names, intercept_index)]
+
+
+def collinear_dependencies(
+    xtwx: np.ndarray, term_names: Sequence[str], intercept_index: int | None = None
+) -> list[tuple[list[str], str]]:
+    """``(group, remove)`` per linear dependency: the group's terms in column order, and one
+    term of it whose removal resolves this dependency; removing every ``remove`` together
+    leaves full rank (:func:`_small_eigenvectors`: one pivot per dependency).
 
     With an intercept (``intercept_index``) collinearity is judged on the columns centred at
     their weighted means and scaled to unit variance (:func:`_centred`), so shifting a column
@@ -124,32 +160,34 @@ def collinear_terms(
     rms = np.sqrt(np.diag(xtwx)[other] / float(xtwx[intercept_index, intercept_index]))
     const = var <= floor
     icpt = term_names[intercept_index]
-    groups: list[list[str]] = [[icpt, term_names[int(other[j])]] for j in np.flatnonzero(const)]
+    groups: list[tuple[list[str], str]] = [
+        ([icpt, term_names[int(other[j])]], term_names[int(other[j])])
+        for j in np.flatnonzero(const)
+    ]
     live = np.flatnonzero(~const)
     if live.size:
         d = np.sqrt(var[live])
-        for v in _small_eigenvectors(C[np.ix_(live, live)] / np.outer(d, d)):
-            a = np.abs(v)
-            big = np.flatnonzero(a > 1e-3 * a.max())
+        for pivot, v in _small_eigenvectors(C[np.ix_(live, live)] / np.outer(d, d)):
+            big = _named(v)
             coef = v / d  # the combination in the columns' own units
             level = float(coef[big] @ mean[live[big]])  # the combination's constant value
             spread = float(np.abs(coef[big]) @ rms[live[big]])  # its terms' typical size
             named = [term_names[int(other[live[j]])] for j in big]
-            groups.append(([icpt] if abs(level) > 1e-6 * spread else []) + named)
+            with_icpt = ([icpt] if abs(level) > 1e-6 * spread else []) + named
+            groups.append((with_icpt, term_names[int(other[live[pivot]])]))
     return groups
 
 
-def _uncentred_groups(xtwx: np.ndarray, term_names: Sequence[str]) -> list[list[str]]:
+def _uncentred_groups(xtwx: np.ndarray, term_names: Sequence[str]) -> list[tuple[list[str], str]]:
     """Collinear groups of ``D^-1/2 X'WX D^-1/2`` (no intercept to centre with)."""
     d = np.sqrt(np.clip(np.diag(xtwx), 0.0, None))
-    groups: list[list[str]] = [[term_names[int(j)]] for j in np.flatnonzero(d == 0)]
+    groups = [([term_names[int(j)]], term_names[int(j)]) for j in np.flatnonzero(d == 0)]
     live = np.flatnonzero(d > 0)
     if live.size:
         S = xtwx[np.ix_(live, live)] / np.outer(d[live], d[live])
-        for v in _small_eigenvectors(S):
-            a = np.abs(v)
-            big = np.flatnonzero(a > 1e-3 * a.max())
-            groups.append([term_names[int(live[j])] for j in big])
+        for pivot, v in _small_eigenvectors(S):
+            named = [term_names[int(live[j])] for j in _named(v)]
+            groups.append((named, term_names[int(live[pivot])]))
     return groups
 
 
@@ -157,7 +195,9 @@ def check_rank(
     xtwx: np.ndarray, term_names: Sequence[str], intercept_index: int | None = None
 ) -> None:
     """Raise :class:`RankDeficientError` naming the collinear terms (:func:`collinear_terms`)."""
-    groups = collinear_terms(xtwx, term_names, intercept_index)
+    deps = collinear_dependencies(xtwx, term_names, intercept_index)
+    groups = [g for g, _ in deps]
+    remove = [r for _, r in deps]
     if groups:
         terms = sorted({t for g in groups for t in g}, key=list(term_names).index)
         zero = any(len(g) == 1 for g in groups)
@@ -171,8 +211,10 @@ def check_rank(
             + (" (a constant column duplicates the intercept)" if const else ""),
             field="X",
             value=terms,
-            remedy="remove one term of each collinear group (or a redundant categorical level)",
-            details={"terms": terms, "groups": groups},
+            remedy=f"remove {', '.join(map(repr, remove))} (one term of each collinear group, "
+            "listed in details.remove; removing them all leaves full rank), or drop a redundant "
+            "categorical level or an interaction whose cells are empty",
+            details={"terms": terms, "groups": groups, "remove": remove},
         )
 
 

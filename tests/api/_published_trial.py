@@ -200,13 +200,16 @@ def status_of(trial: Trial) -> str:
 
 
 def remedy_restores_rank(trial: Trial) -> bool:
-    """The rank refusal's remedy ("remove one term of each collinear group") done on the
-    independent design: dropping the first term of each named group leaves full column rank,
-    and no group is named twice."""
-    groups = [tuple(g) for g in trial.body["error"]["details"]["groups"]]
-    if len(set(groups)) != len(groups):
+    """The rank refusal's remedy (remove the terms in ``details.remove``, one of each
+    collinear group) done on the independent design: it leaves full column rank, no group is
+    named twice, and each removed term belongs to its own group."""
+    details = trial.body["error"]["details"]
+    groups = [tuple(g) for g in details["groups"]]
+    if len(set(groups)) != len(groups) or len(details["remove"]) != len(groups):
+        return False
+    if not all(r in g for r, g in zip(details["remove"], groups, strict=True)):
         return False
     X = reference_design(trial.case.spec, trial.case.columns)
-    drop = {g[0] for g in groups}
+    drop = set(details["remove"])
     kept = X[[c for c in X.columns if c not in drop]].to_numpy()
     return bool(np.linalg.matrix_rank(kept) == kept.shape[1])

@@ -193,11 +193,6 @@ def test_the_remedy_firth_fits_separated_data(api: ApiClient, make: Callable[[],
     _check_fit(run_case(api, case, "separated-firth"))
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="product: a Firth fit stopped by the client's own max_iter=2 is told to look for "
-    "nearly collinear terms or extreme scales; the remedy does not name options.max_iter",
-)
 def test_a_firth_fit_stopped_by_its_max_iter_is_told_to_raise_it(api: ApiClient) -> None:
     # statsmodels.datasets.spector; two iterations cannot reach the maximum. The 422 names
     # max_iter and does not offer the method that was just used as the remedy.
@@ -210,13 +205,6 @@ def test_a_firth_fit_stopped_by_its_max_iter_is_told_to_raise_it(api: ApiClient)
     assert row_count(api, "model_version") == 0
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="product: the rank refusal is right, but it names one merged group twice "
-    "(PID=pid3 ~ PID=pid5 ~ 12 interaction terms; same group again) where there are two "
-    "dependencies, so its remedy 'remove one term of each collinear group' leaves the design "
-    "rank deficient",
-)
 def test_empty_interaction_cells_are_refused_with_a_remedy_that_works(api: ApiClient) -> None:
     # statsmodels.datasets.anes96, PID x educ: no voter with PID 3 or 5 has educ 1, so the
     # design has rank 54 of 56 (numpy.linalg.matrix_rank of the independent pandas design).
